@@ -43,6 +43,8 @@ def _check_columns(columns):
     if isinstance(columns, str):
         raise InputError("columns: expected a sequence of column names, got a single string")
     columns = tuple(columns)
+    if not columns:
+        raise InputError("columns: at least one value column is needed")
     for name in columns:
         if not isinstance(name, str) or not re.fullmatch(r"[a-z][a-z0-9_]*", name):
             raise InputError(f"columns: names must be lower_snake_case words, got {name!r}")
@@ -209,6 +211,14 @@ def truncate_table(path, last_step):
     return len(kept) - 1
 
 
+def _column_array(texts):
+    """Parse one column's cells: int64 if every cell is an integer, else float64 parsed exactly."""
+    try:
+        return np.array([int(t) for t in texts], dtype=np.int64)
+    except ValueError:
+        return np.array([float(t) for t in texts], dtype=np.float64)
+
+
 def read_table(path):
     """Read a scalar table into a DataFrame.
 
@@ -220,13 +230,24 @@ def read_table(path):
     Returns
     -------
     pandas.DataFrame
-        One row per record; column ``step`` is int64, the others as written
-        (float64 values are bit-identical to those appended).
+        One row per record; columns holding only integers (always ``step``)
+        are int64, the others float64, bit-identical to the values appended
+        (cells are parsed by Python's exact ``int``/``float``).
     """
     name = os.fspath(path)
     try:
-        return pd.read_csv(name, sep=_SEPARATOR, float_precision="round_trip")
+        with open(name, encoding="utf-8", newline="") as fh:
+            lines = fh.read().splitlines()
     except FileNotFoundError:
         raise InputError(f"{name}: table does not exist") from None
-    except (pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
-        raise InputError(f"{name}: cannot be read as a scalar table ({exc})") from None
+    if not lines or not lines[0].startswith("step" + _SEPARATOR):
+        raise InputError(f"{name}: not a beadsim scalar table (the first line must start with 'step,')")
+    header = lines[0].split(_SEPARATOR)
+    rows = [line.split(_SEPARATOR) for line in lines[1:]]
+    for number, row in enumerate(rows, start=2):
+        if len(row) != len(header):
+            raise InputError(f"{name}, line {number}: expected {len(header)} fields, got {len(row)}")
+    try:
+        return pd.DataFrame({col: _column_array([row[i] for row in rows]) for i, col in enumerate(header)})
+    except ValueError as exc:
+        raise InputError(f"{name}: a cell is not a number ({exc})") from None
