@@ -1,0 +1,1 @@
+"""How the state moves: integrators, minimiser, the run loop."""

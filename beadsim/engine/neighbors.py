@@ -1,0 +1,46 @@
+"""Verlet-list state kept between kernel calls."""
+
+import numpy as np
+
+from ..errors import InputError
+from ..kernels.integrate import refresh_list
+
+
+class NeighborList:
+    """Half Verlet list built from cells, rebuilt when a bead moves more than skin / 2.
+
+    Parameters
+    ----------
+    n_beads : int
+    cutoff : float
+        Largest pair cutoff, sigma.
+    skin : float
+        Extra list radius, sigma.
+    excl_start, excl : int64 arrays
+        Excluded pairs in compressed rows.
+    box_lengths : float64 (3,) or None
+        Periodic box edges; the list radius must not exceed half of any.
+    """
+
+    def __init__(self, n_beads, cutoff, skin, excl_start, excl, box_lengths=None):
+        self.cutoff = float(cutoff)
+        self.skin = float(skin)
+        self.r_list = self.cutoff + self.skin
+        if box_lengths is not None and self.r_list > 0.5 * float(np.min(box_lengths)):
+            raise InputError(f"cutoff + skin = {self.r_list:.3f} sigma exceeds half the smallest box edge "
+                             f"({0.5 * float(np.min(box_lengths)):.3f} sigma); use a larger box or shorter cutoff")
+        self.excl_start = excl_start
+        self.excl = excl
+        self.start = np.zeros(n_beads + 1, dtype=np.int64)
+        self.nbr = np.zeros(max(64, 8 * n_beads), dtype=np.int64)  # grows on demand
+        self.ref = np.zeros((n_beads, 3))
+
+    def build(self, positions, box_lengths, periodic):
+        """Rebuild the list around ``positions`` (float64 (n, 3), sigma)."""
+        self.nbr = refresh_list(positions, box_lengths, periodic, self.r_list, self.excl_start, self.excl,
+                                self.start, self.nbr, self.ref)
+
+    @property
+    def n_pairs(self):
+        """Number of listed pairs."""
+        return int(self.start[-1])

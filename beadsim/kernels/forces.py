@@ -1,0 +1,263 @@
+"""Pair, bond and bending forces over plain arrays.
+
+Potential kinds are integer codes so that one kernel serves every combination
+of bead types; the parameter layout of each code is documented on the Python
+side in :mod:`beadsim.model.potentials`, which is the only place that fills it.
+
+Pair codes (row ``params[ti, tj, :]``):
+
+* ``PAIR_NONE``  no interaction.
+* ``PAIR_LJ``    ``[eps, sigma, r_cut**2, u_shift]``:
+  U = 4 eps [(sigma/r)^12 - (sigma/r)^6] - u_shift for r < r_cut.
+* ``PAIR_COS2``  ``[eps, sigma, r_cut**2, phi, alpha, beta, r_min**2]``:
+  Soddemann, Duenweg and Kremer, Eur. Phys. J. E 6, 409 (2001):
+  U = 4 eps [(sigma/r)^12 - (sigma/r)^6 + 1/4] - phi for r < r_min = 2^(1/6) sigma,
+  U = (phi/2) [cos(alpha r^2 + beta) - 1] for r_min <= r < r_cut.
+* ``PAIR_TABLE`` ``[table, r_first, dr, n_points, r_cut**2]``: cubic Hermite
+  interpolation of tabulated U and dU/dr on a uniform grid.
+
+Bond codes (row ``bond_params[type, :]``):
+
+* ``BOND_FENE``     ``[k, r0]``: U = -(k r0^2 / 2) ln(1 - (r/r0)^2) (Kremer and
+  Grest, J. Chem. Phys. 92, 5057, 1990).
+* ``BOND_HARMONIC`` ``[k, r_rest]``: U = (k/2) (r - r_rest)^2.
+* ``BOND_TABLE``    ``[table, r_first, dr, n_points]``.
+
+Bending (row ``angle_params[type, :]``): ``[kappa]``,
+U = kappa (1 - cos theta), theta the angle between consecutive bond vectors.
+
+Status codes returned in ``info[0]`` (``info[1]`` holds the offending index):
+``OK``, ``FENE_OVERSTRETCH`` (bond index), ``OUTSIDE_TABLE`` (bond index, or
+-1 - i for a pair at bead i), ``NOT_FINITE``.
+"""
+
+import math
+
+import numpy as np
+from numba import njit
+
+from .neighbors import minimum_image
+
+PAIR_NONE, PAIR_LJ, PAIR_COS2, PAIR_TABLE = 0, 1, 2, 3
+BOND_FENE, BOND_HARMONIC, BOND_TABLE = 0, 1, 2
+OK, FENE_OVERSTRETCH, OUTSIDE_TABLE, NOT_FINITE = 0, 1, 2, 3
+N_PAIR_PARAMS = 8
+N_BOND_PARAMS = 4
+
+
+@njit(cache=True, inline="always")
+def hermite_table(table, r_first, dr, n_points, r):
+    """Cubic Hermite value U(r) and slope dU/dr from a uniform table.
+
+    ``table`` is float64 (n_points, 2) holding U and dU/dr at r_first + k dr.
+    Returns ``(u, du_dr, inside)``; outside the grid ``inside`` is False.
+    """
+    x = (r - r_first) / dr
+    k = int(math.floor(x))
+    if k < 0 or k >= n_points - 1:
+        if k == n_points - 1 and x - k == 0.0:
+            return table[k, 0], table[k, 1], True
+        return 0.0, 0.0, False
+    t = x - k
+    t2 = t * t
+    t3 = t2 * t
+    u0 = table[k, 0]
+    m0 = table[k, 1] * dr
+    u1 = table[k + 1, 0]
+    m1 = table[k + 1, 1] * dr
+    u = (2 * t3 - 3 * t2 + 1) * u0 + (t3 - 2 * t2 + t) * m0 + (-2 * t3 + 3 * t2) * u1 + (t3 - t2) * m1
+    du = (6 * t2 - 6 * t) * u0 + (3 * t2 - 4 * t + 1) * m0 + (-6 * t2 + 6 * t) * u1 + (3 * t2 - 2 * t) * m1
+    return u, du / dr, True
+
+
+@njit(cache=True, inline="always")
+def pair_energy_force(kind, p, r2, tables):
+    """Energy and f/r (force divided by distance) of one pair at squared distance r2.
+
+    Returns ``(u, f_over_r, inside)``; ``inside`` is False only for a table
+    pair closer than its first tabulated distance.
+    """
+    if kind == PAIR_LJ:
+        if r2 >= p[2]:
+            return 0.0, 0.0, True
+        s2 = p[1] * p[1] / r2
+        s6 = s2 * s2 * s2
+        return 4.0 * p[0] * (s6 * s6 - s6) - p[3], 24.0 * p[0] * (2.0 * s6 * s6 - s6) / r2, True
+    if kind == PAIR_COS2:
+        if r2 >= p[2]:
+            return 0.0, 0.0, True
+        if r2 < p[6]:
+            s2 = p[1] * p[1] / r2
+            s6 = s2 * s2 * s2
+            return 4.0 * p[0] * (s6 * s6 - s6 + 0.25) - p[3], 24.0 * p[0] * (2.0 * s6 * s6 - s6) / r2, True
+        arg = p[4] * r2 + p[5]
+        # dU/dr = -(phi/2) sin(arg) 2 alpha r, so f/r = phi alpha sin(arg)
+        return 0.5 * p[3] * (math.cos(arg) - 1.0), p[3] * p[4] * math.sin(arg), True
+    if kind == PAIR_TABLE:
+        if r2 >= p[4]:
+            return 0.0, 0.0, True
+        r = math.sqrt(r2)
+        u, du, inside = hermite_table(tables[int(p[0])], p[1], p[2], int(p[3]), r)
+        return u, -du / r, inside
+    return 0.0, 0.0, True
+
+
+@njit(cache=True)
+def pair_forces(pos, box, periodic, types, start, nbr, kinds, params, tables, force, info):
+    """Add non-bonded forces over a half Verlet list; return (energy, virial).
+
+    The virial is sum over pairs of r_ij . f_ij (energy units); pressure follows
+    as (2 K + virial) / (3 V).
+    """
+    n = pos.shape[0]
+    energy = 0.0
+    virial = 0.0
+    for i in range(n):
+        ti = types[i]
+        xi = pos[i, 0]
+        yi = pos[i, 1]
+        zi = pos[i, 2]
+        fx = 0.0
+        fy = 0.0
+        fz = 0.0
+        for k in range(start[i], start[i + 1]):
+            j = nbr[k]
+            tj = types[j]
+            kind = kinds[ti, tj]
+            if kind == PAIR_NONE:
+                continue
+            dx = minimum_image(pos[j, 0] - xi, box[0], periodic)
+            dy = minimum_image(pos[j, 1] - yi, box[1], periodic)
+            dz = minimum_image(pos[j, 2] - zi, box[2], periodic)
+            r2 = dx * dx + dy * dy + dz * dz
+            u, f_r, inside = pair_energy_force(kind, params[ti, tj], r2, tables)
+            if not inside:
+                info[0] = OUTSIDE_TABLE
+                info[1] = -1 - i
+            energy += u
+            virial += f_r * r2
+            # force on j is +f_r * d (d points from i to j), on i the opposite
+            fx -= f_r * dx
+            fy -= f_r * dy
+            fz -= f_r * dz
+            force[j, 0] += f_r * dx
+            force[j, 1] += f_r * dy
+            force[j, 2] += f_r * dz
+        force[i, 0] += fx
+        force[i, 1] += fy
+        force[i, 2] += fz
+    return energy, virial
+
+
+@njit(cache=True)
+def bond_forces(pos, box, periodic, bonds, bond_type, kinds, params, tables, force, info):
+    """Add bond forces; return (energy, virial). Flags overstretched FENE bonds in ``info``."""
+    energy = 0.0
+    virial = 0.0
+    for b in range(bonds.shape[0]):
+        i = bonds[b, 0]
+        j = bonds[b, 1]
+        t = bond_type[b]
+        kind = kinds[t]
+        p = params[t]
+        dx = minimum_image(pos[j, 0] - pos[i, 0], box[0], periodic)
+        dy = minimum_image(pos[j, 1] - pos[i, 1], box[1], periodic)
+        dz = minimum_image(pos[j, 2] - pos[i, 2], box[2], periodic)
+        r2 = dx * dx + dy * dy + dz * dz
+        if kind == BOND_FENE:
+            x = r2 / (p[1] * p[1])
+            if x >= 1.0:
+                info[0] = FENE_OVERSTRETCH
+                info[1] = b
+                continue
+            u = -0.5 * p[0] * p[1] * p[1] * math.log(1.0 - x)
+            f_r = -p[0] / (1.0 - x)
+        elif kind == BOND_HARMONIC:
+            r = math.sqrt(r2)
+            u = 0.5 * p[0] * (r - p[1]) ** 2
+            f_r = -p[0] * (r - p[1]) / r
+        else:
+            r = math.sqrt(r2)
+            u, du, inside = hermite_table(tables[int(p[0])], p[1], p[2], int(p[3]), r)
+            if not inside:
+                info[0] = OUTSIDE_TABLE
+                info[1] = b
+                continue
+            f_r = -du / r
+        energy += u
+        virial += f_r * r2
+        force[i, 0] -= f_r * dx
+        force[i, 1] -= f_r * dy
+        force[i, 2] -= f_r * dz
+        force[j, 0] += f_r * dx
+        force[j, 1] += f_r * dy
+        force[j, 2] += f_r * dz
+    return energy, virial
+
+
+@njit(cache=True)
+def bending_forces(pos, box, periodic, angles, angle_type, params, force):
+    """Add bending forces U = kappa (1 - cos theta); return (energy, virial).
+
+    For the triple (i, j, k) with bond vectors a = r_j - r_i and b = r_k - r_j,
+    cos theta = a.b / (|a||b|) and dU/da = -kappa (b/(|a||b|) - cos theta a/|a|^2),
+    dU/db = -kappa (a/(|a||b|) - cos theta b/|b|^2).
+    """
+    energy = 0.0
+    virial = 0.0
+    a = np.empty(3)
+    b = np.empty(3)
+    for m in range(angles.shape[0]):
+        i = angles[m, 0]
+        j = angles[m, 1]
+        k = angles[m, 2]
+        kappa = params[angle_type[m], 0]
+        for d in range(3):
+            a[d] = minimum_image(pos[j, d] - pos[i, d], box[d], periodic)
+            b[d] = minimum_image(pos[k, d] - pos[j, d], box[d], periodic)
+        aa = a[0] * a[0] + a[1] * a[1] + a[2] * a[2]
+        bb = b[0] * b[0] + b[1] * b[1] + b[2] * b[2]
+        ab = a[0] * b[0] + a[1] * b[1] + a[2] * b[2]
+        inv = 1.0 / math.sqrt(aa * bb)
+        c = ab * inv
+        energy += kappa * (1.0 - c)
+        for d in range(3):
+            # gradients of U with respect to a and b
+            ga = -kappa * (b[d] * inv - c * a[d] / aa)
+            gb = -kappa * (a[d] * inv - c * b[d] / bb)
+            # a = r_j - r_i, b = r_k - r_j: force = -dU/dr
+            force[i, d] += ga
+            force[j, d] += gb - ga
+            force[k, d] -= gb
+            virial -= ga * a[d] + gb * b[d]
+    return energy, virial
+
+
+@njit(cache=True)
+def total_forces(pos, box, periodic, types, start, nbr, ff, force, energies, info):
+    """Zero ``force`` and fill it with all forces; write energies and status.
+
+    Parameters
+    ----------
+    ff : tuple
+        ``(pair_kinds, pair_params, tables, bonds, bond_type, bond_kinds,
+        bond_params, angles, angle_type, angle_params)`` as built by
+        :meth:`beadsim.model.potentials.ForceField.compile`.
+    energies : float64 (4,)
+        Output: pair, bond, bending energy and the total virial.
+    info : int64 (2,)
+        Output status code and offending index (see module docstring).
+    """
+    pair_kinds, pair_params, tables, bonds, bond_type, bond_kinds, bond_params, angles, angle_type, angle_params = ff
+    force[:, :] = 0.0
+    info[0] = OK
+    info[1] = 0
+    e_pair, w_pair = pair_forces(pos, box, periodic, types, start, nbr, pair_kinds, pair_params, tables, force, info)
+    e_bond, w_bond = bond_forces(pos, box, periodic, bonds, bond_type, bond_kinds, bond_params, tables, force, info)
+    e_bend, w_bend = bending_forces(pos, box, periodic, angles, angle_type, angle_params, force)
+    energies[0] = e_pair
+    energies[1] = e_bond
+    energies[2] = e_bend
+    energies[3] = w_pair + w_bond + w_bend
+    if info[0] == OK and not math.isfinite(e_pair + e_bond + e_bend):
+        info[0] = NOT_FINITE

@@ -1,0 +1,1 @@
+"""What is simulated: state, potentials, tables and chain builders."""
