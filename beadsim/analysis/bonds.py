@@ -1,0 +1,190 @@
+"""Local chain structure: bond lengths, bond angles, bond-vector correlations, persistence length.
+
+Bonds and angles are taken along each chain's backbone order: bond k of a
+chain joins its beads k and k+1, and the bond angle at bead k (0 < k < n-1) is
+the angle between the vectors to beads k-1 and k+1 (pi for a straight chain).
+The bond-vector correlation is ``C(s) = <b_k . b_{k+s}> / <b^2>`` averaged over
+all bonds and chains; for a worm-like chain ``C(s) = exp(-s <b> / l_p)``, which
+defines the persistence length l_p used here.
+"""
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .._validate import as_array
+from ..errors import AnalysisError, InputError
+from ._common import check_chains, check_positions, line_fit
+from .trajectory import find_chains, trajectory_positions
+
+
+def _bond_vectors(positions, chains):
+    x = check_positions(positions)
+    chains = check_chains(chains, x.shape[1])
+    return [x[:, c[1:]] - x[:, c[:-1]] for c in chains]
+
+
+def bond_lengths(positions, chains):
+    """Length of every backbone bond in every frame.
+
+    Parameters
+    ----------
+    positions : array_like, shape (n_frames, n_beads, 3), float64
+        Bead positions (chains whole), unit L.
+    chains : sequence of array_like of int
+        Bead indices of each chain in backbone order.
+
+    Returns
+    -------
+    ndarray, shape (n_frames, n_bonds), float64
+        Bonds of all chains in chain order, unit L.
+    """
+    return np.concatenate([np.linalg.norm(b, axis=-1) for b in _bond_vectors(positions, chains)], axis=1)
+
+
+def bond_angles(positions, chains):
+    """Bond angle at every inner backbone bead in every frame.
+
+    Parameters
+    ----------
+    positions, chains
+        As for :func:`bond_lengths`; chains need three or more beads.
+
+    Returns
+    -------
+    ndarray, shape (n_frames, n_angles), float64
+        Angles in radians in [0, pi]; pi for a straight chain.
+    """
+    angles = []
+    for b in _bond_vectors(positions, chains):
+        if b.shape[1] < 2:
+            raise AnalysisError("bond angles need chains of three or more beads")
+        u, v = -b[:, :-1], b[:, 1:]
+        cos = np.einsum("fka,fka->fk", u, v) / (np.linalg.norm(u, axis=-1) * np.linalg.norm(v, axis=-1))
+        angles.append(np.arccos(np.clip(cos, -1.0, 1.0)))
+    return np.concatenate(angles, axis=1)
+
+
+def distribution(values, bins=100, value_range=None):
+    """Normalised histogram (probability density) of bond lengths or angles.
+
+    Parameters
+    ----------
+    values : array_like, float64
+        Samples, any shape (flattened).
+    bins : int
+        Number of bins.
+    value_range : (float, float), optional
+        Histogram range; default the sample range.
+
+    Returns
+    -------
+    centres : ndarray, shape (bins,), float64
+    density : ndarray, shape (bins,), float64
+        Integrates to 1 over the range.
+    """
+    values = np.ravel(np.asarray(values, dtype=np.float64))
+    density, edges = np.histogram(values, bins=bins, range=value_range, density=True)
+    return 0.5 * (edges[1:] + edges[:-1]), density
+
+
+def bond_correlation(positions, chains):
+    """Bond-vector correlation ``C(s) = <b_k . b_{k+s}> / <b^2>`` along the backbone.
+
+    Parameters
+    ----------
+    positions, chains
+        As for :func:`bond_lengths`.
+
+    Returns
+    -------
+    ndarray, shape (n_max - 1,), float64
+        C(s) for s = 0 .. (longest chain's bonds - 1), averaged over frames,
+        chains and bond pairs; C(0) = 1.
+    """
+    vectors = _bond_vectors(positions, chains)
+    n_max = max(b.shape[1] for b in vectors)
+    total = np.zeros(n_max)
+    count = np.zeros(n_max)
+    for b in vectors:
+        n = b.shape[1]
+        spectrum = np.fft.rfft(b, n=2 * n, axis=1)
+        corr = np.fft.irfft(np.sum(spectrum * spectrum.conj(), axis=-1).real, n=2 * n, axis=1)[:, :n]
+        total[:n] += corr.sum(axis=0)
+        count[:n] += b.shape[0] * (n - np.arange(n))
+    mean = total / count
+    return mean / mean[0]
+
+
+@dataclass(frozen=True)
+class PersistenceFit:
+    """Persistence length from the decay of the bond-vector correlation.
+
+    Attributes
+    ----------
+    length : float
+        ``l_p = <b> / decay`` with ``C(s) = exp(-decay * s)``, unit L.
+    error : float
+        Standard error from the fit residuals (NaN if the fit had two points).
+    s_max : int
+        Largest separation used.
+    """
+
+    length: float
+    error: float
+    s_max: int
+
+
+def persistence_length(correlation, mean_bond_length, cutoff=np.exp(-2.0)):
+    """Fit ``ln C(s) = -s <b> / l_p`` over s = 0 .. s_max, where C stays above ``cutoff``.
+
+    The cutoff exp(-2) (the fit stops once the correlation has decayed by two
+    e-folds, before noise dominates) is common practice.
+
+    Parameters
+    ----------
+    correlation : array_like, shape (m,), float64
+        C(s) from :func:`bond_correlation` (C(0) = 1).
+    mean_bond_length : float
+        ``<b>``, unit L.
+    cutoff : float
+        Fit only the leading points with C(s) > cutoff.
+
+    Returns
+    -------
+    PersistenceFit
+
+    Raises
+    ------
+    AnalysisError
+        C(1) <= 0 (flexible chain with anticorrelated neighbouring bonds): no
+        exponential decay to fit.
+    """
+    c = as_array(correlation, "correlation", shape=(None,))
+    if c.size < 2 or c[1] <= 0:
+        raise AnalysisError("persistence length undefined: neighbouring bonds are not positively correlated "
+                            "(C(1) <= 0), so the correlation shows no exponential decay")
+    if mean_bond_length <= 0:
+        raise InputError(f"mean_bond_length: must be > 0, got {mean_bond_length!r}")
+    below = np.flatnonzero(c <= cutoff)
+    s_max = max(1, (int(below[0]) if below.size else c.size) - 1)
+    s = np.arange(s_max + 1, dtype=np.float64)
+    if s_max == 1:
+        decay, error = -np.log(c[1]), float("nan")
+    else:
+        slope, _, cov, _ = line_fit(s, np.log(c[:s_max + 1]))
+        decay, error = -slope, np.sqrt(cov[0, 0])
+    length = mean_bond_length / decay
+    return PersistenceFit(length=float(length), error=float(length * error / decay), s_max=int(s_max))
+
+
+def compute_bond_lengths(traj, chains=None, length_scale=None):
+    """Backbone bond lengths, shape (n_frames, n_bonds), of an mdtraj trajectory (nm, or sigma with ``length_scale``)."""
+    x = trajectory_positions(traj, length_scale)
+    return bond_lengths(x, find_chains(traj.topology) if chains is None else chains)
+
+
+def compute_bond_angles(traj, chains=None):
+    """Backbone bond angles in radians, shape (n_frames, n_angles), of an mdtraj trajectory."""
+    x = trajectory_positions(traj)
+    return bond_angles(x, find_chains(traj.topology) if chains is None else chains)

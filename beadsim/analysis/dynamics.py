@@ -1,0 +1,278 @@
+"""Chain dynamics: mean-square displacements, diffusion coefficient, end-to-end vector relaxation.
+
+Time correlations are averaged over all time origins. The mean-square
+displacement at lag m of a path r_0 .. r_{T-1} is
+
+    MSD(m) = (1/(T-m)) sum_t |r_{t+m} - r_t|^2
+           = (1/(T-m)) [sum_{t<T-m} |r_t|^2 + sum_{t>=m} |r_t|^2] - 2 A(m),
+
+where ``A(m) = (1/(T-m)) sum_t r_t . r_{t+m}`` is obtained for all lags at once
+with a zero-padded FFT (Wiener-Khinchin theorem), so the cost is O(T log T).
+Frames must be equally spaced and chains continuous in time (as
+:func:`beadsim.analysis.trajectory.trajectory_positions` makes them).
+"""
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .._validate import as_array, positive, positive_int
+from ..errors import AnalysisError, InputError
+from ._common import check_chains, check_positions, line_fit
+from .size import end_to_end_vector
+from .trajectory import find_chains, trajectory_positions
+
+
+def _autocorrelation_sum(v):
+    """``sum_t v_t . v_{t+m}`` for m = 0..T-1 of paths ``v`` (T, ..., 3) -> (T, ...)."""
+    n = v.shape[0]
+    spectrum = np.fft.rfft(v, n=2 * n, axis=0)
+    return np.fft.irfft(np.sum(spectrum * spectrum.conj(), axis=-1).real, n=2 * n, axis=0)[:n]
+
+
+def mean_square_displacement(paths):
+    """Time-origin-averaged mean-square displacement of each path.
+
+    Parameters
+    ----------
+    paths : array_like, shape (n_frames, n_paths, 3), float64
+        Continuous (unwrapped) trajectories of points, unit L.
+
+    Returns
+    -------
+    ndarray, shape (n_frames, n_paths), float64
+        MSD at lags 0 .. n_frames-1 frames, unit L^2.
+    """
+    r = as_array(paths, "paths", shape=(None, None, 3))
+    r = r - r.mean(axis=0)
+    n = r.shape[0]
+    sq = np.einsum("tpa,tpa->tp", r, r)
+    prefix = np.concatenate([np.zeros((1, r.shape[1])), np.cumsum(sq, axis=0)], axis=0)
+    m = np.arange(n)
+    squares = prefix[n - m] + (prefix[n] - prefix[m])
+    msd = (squares - 2.0 * _autocorrelation_sum(r)) / (n - m)[:, None]
+    return np.maximum(msd, 0.0)
+
+
+def center_of_mass_paths(positions, chains):
+    """Centre of mass (equal bead masses) of each chain in each frame.
+
+    Parameters
+    ----------
+    positions : array_like, shape (n_frames, n_beads, 3), float64
+        Unit L.
+    chains : sequence of array_like of int
+        Bead indices of each chain.
+
+    Returns
+    -------
+    ndarray, shape (n_frames, n_chains, 3), float64
+    """
+    x = check_positions(positions)
+    chains = check_chains(chains, x.shape[1])
+    return np.stack([x[:, c].mean(axis=1) for c in chains], axis=1)
+
+
+def center_of_mass_msd(positions, chains):
+    """MSD of each chain's centre of mass, shape (n_frames, n_chains), unit L^2 (lags in frames)."""
+    return mean_square_displacement(center_of_mass_paths(positions, chains))
+
+
+def inner_bead_msd(positions, chains, n_inner=5):
+    """MSD of the innermost beads of each chain, averaged over those beads.
+
+    Middle beads avoid the faster motion of chain ends; ``n_inner = 5`` is
+    common practice.
+
+    Parameters
+    ----------
+    positions, chains
+        As for :func:`center_of_mass_paths`.
+    n_inner : int
+        Number of central beads per chain (at most the chain length).
+
+    Returns
+    -------
+    ndarray, shape (n_frames, n_chains), float64
+        Unit L^2, lags in frames.
+    """
+    x = check_positions(positions)
+    chains = check_chains(chains, x.shape[1])
+    n_inner = positive_int(n_inner, "n_inner")
+    out = []
+    for c in chains:
+        k = min(n_inner, c.size)
+        start = (c.size - k) // 2
+        out.append(mean_square_displacement(x[:, c[start:start + k]]).mean(axis=1))
+    return np.stack(out, axis=1)
+
+
+@dataclass(frozen=True)
+class DiffusionFit:
+    """Diffusion coefficient from ``MSD(t) = 6 D t + c`` fitted over a window.
+
+    Attributes
+    ----------
+    coefficient : float
+        Mean of the per-path values, unit L^2 per time unit.
+    error : float or None
+        Standard error across paths (independent chains); None for a single path.
+    per_path : ndarray, shape (n_paths,), float64
+        D of each path.
+    t_min, t_max : float
+        Fit window.
+    """
+
+    coefficient: float
+    error: float | None
+    per_path: np.ndarray
+    t_min: float
+    t_max: float
+
+
+def diffusion_coefficient(lag_times, msd, fit_range=None):
+    """Fit ``MSD = 6 D t + c`` to each path's MSD and average.
+
+    Parameters
+    ----------
+    lag_times : array_like, shape (n_lags,), float64
+        Lag times, increasing, starting at 0.
+    msd : array_like, shape (n_lags, n_paths), float64
+        MSD per path (e.g. from :func:`center_of_mass_msd`).
+    fit_range : (float, float), optional
+        Time window; default from 10 % to 50 % of the longest lag (short lags
+        are sub-diffusive, long lags have few time origins: common practice).
+
+    Returns
+    -------
+    DiffusionFit
+    """
+    t = as_array(lag_times, "lag_times", shape=(None,))
+    msd = as_array(msd, "msd", shape=(t.size, None))
+    lo, hi = (0.1 * t[-1], 0.5 * t[-1]) if fit_range is None else fit_range
+    use = (t >= lo) & (t <= hi)
+    if use.sum() < 3:
+        raise AnalysisError(f"diffusion fit needs three or more lags in [{lo}, {hi}], got {int(use.sum())}")
+    d = np.array([line_fit(t[use], msd[use, p])[0] / 6.0 for p in range(msd.shape[1])])
+    error = float(d.std(ddof=1) / np.sqrt(d.size)) if d.size > 1 else None
+    return DiffusionFit(coefficient=float(d.mean()), error=error, per_path=d,
+                        t_min=float(t[use][0]), t_max=float(t[use][-1]))
+
+
+def vector_autocorrelation(vectors):
+    """Normalised autocorrelation ``<v(t) . v(t+m)> / <v . v>`` averaged over paths and time origins.
+
+    Parameters
+    ----------
+    vectors : array_like, shape (n_frames, n_paths, 3), float64
+        E.g. end-to-end vectors per frame and chain.
+
+    Returns
+    -------
+    ndarray, shape (n_frames,), float64
+        Correlation at lags 0 .. n_frames-1 frames; value 1 at lag 0.
+    """
+    v = as_array(vectors, "vectors", shape=(None, None, 3))
+    n = v.shape[0]
+    corr = _autocorrelation_sum(v).sum(axis=1) / (n - np.arange(n))
+    if corr[0] <= 0:
+        raise AnalysisError("vectors: all zero, autocorrelation undefined")
+    return corr / corr[0]
+
+
+@dataclass(frozen=True)
+class RelaxationTime:
+    """Relaxation times of a normalised autocorrelation function.
+
+    Attributes
+    ----------
+    integrated : float
+        ``dt (1/2 + sum_{m>=1} C(m))`` summed up to the first non-positive C;
+        equals tau for ``C = exp(-t/tau)`` with ``dt << tau``.
+    e_fold : float or None
+        First time where C falls to 1/e (linear interpolation); None if it never does.
+    converged : bool
+        False if C never reached zero within the data, so ``integrated`` is a lower bound.
+    """
+
+    integrated: float
+    e_fold: float | None
+    converged: bool
+
+
+def relaxation_time(acf, dt):
+    """Integrated and 1/e relaxation times of a normalised autocorrelation function.
+
+    Parameters
+    ----------
+    acf : array_like, shape (n_lags,), float64
+        Autocorrelation with ``acf[0] = 1`` (e.g. from :func:`vector_autocorrelation`).
+    dt : float
+        Time between lags.
+
+    Returns
+    -------
+    RelaxationTime
+    """
+    c = as_array(acf, "acf", shape=(None,))
+    dt = positive(dt, "dt")
+    if c.size < 2 or not np.isclose(c[0], 1.0):
+        raise InputError("acf: expected two or more lags with acf[0] = 1")
+    nonpositive = np.flatnonzero(c <= 0)
+    stop = int(nonpositive[0]) if nonpositive.size else c.size
+    integrated = dt * (0.5 + c[1:stop].sum())
+    below = np.flatnonzero(c < np.exp(-1.0))
+    e_fold = None
+    if below.size:
+        k = int(below[0])
+        e_fold = float(dt * (k - 1 + (c[k - 1] - np.exp(-1.0)) / (c[k - 1] - c[k])))
+    return RelaxationTime(integrated=float(integrated), e_fold=e_fold, converged=bool(nonpositive.size))
+
+
+def _lag_times(traj):
+    t = np.asarray(traj.time, dtype=np.float64)
+    return t - t[0]
+
+
+def compute_msd(traj, chains=None, kind="com", n_inner=5, length_scale=None):
+    """Mean-square displacement of an mdtraj trajectory.
+
+    Parameters
+    ----------
+    traj : mdtraj.Trajectory
+        Equally spaced frames; positions in nm.
+    chains : sequence of array_like of int, optional
+        Default: connected components of the bond graph.
+    kind : {"com", "inner"}
+        Centre of mass of each chain, or its ``n_inner`` middle beads.
+    n_inner : int
+        See :func:`inner_bead_msd`.
+    length_scale : float, optional
+        nm per sigma; MSD in sigma^2 if given, else nm^2.
+
+    Returns
+    -------
+    lag_times : ndarray, shape (n_frames,), float64
+        ``traj.time - traj.time[0]``, in the trajectory's time unit.
+    msd : ndarray, shape (n_frames, n_chains), float64
+    """
+    if kind not in ("com", "inner"):
+        raise InputError(f"kind: expected 'com' or 'inner', got {kind!r}")
+    x = trajectory_positions(traj, length_scale)
+    chains = find_chains(traj.topology) if chains is None else chains
+    msd = center_of_mass_msd(x, chains) if kind == "com" else inner_bead_msd(x, chains, n_inner)
+    return _lag_times(traj), msd
+
+
+def compute_end_to_end_autocorrelation(traj, chains=None):
+    """End-to-end vector autocorrelation of an mdtraj trajectory.
+
+    Returns
+    -------
+    lag_times : ndarray, shape (n_frames,), float64
+        In the trajectory's time unit.
+    acf : ndarray, shape (n_frames,), float64
+    """
+    x = trajectory_positions(traj)
+    chains = find_chains(traj.topology) if chains is None else chains
+    return _lag_times(traj), vector_autocorrelation(end_to_end_vector(x, chains))

@@ -1,0 +1,263 @@
+"""Errors of time averages: equilibration detection, statistical inefficiency, blocking, summaries.
+
+* Statistical inefficiency ``g = 1 + 2 sum_t (1 - t/n) C(t)`` with the sum cut at
+  the first non-positive normalised autocorrelation C(t), as implemented in
+  :func:`pymbar.timeseries.statistical_inefficiency`; the number of effectively
+  independent samples is ``n / g`` and the standard error of the mean is
+  ``s * sqrt(g / n)``.
+* Equilibration detection: the start t0 that maximises the number of
+  independent samples in ``x[t0:]`` (Chodera, J. Chem. Theory Comput. 12, 1799,
+  2016), via :func:`pymbar.timeseries.detect_equilibration`.
+* Blocking: Flyvbjerg and Petersen, J. Chem. Phys. 91, 461 (1989). The series
+  is halved repeatedly by averaging neighbours; the plateau level is chosen with
+  the automated test of Jonsson, Phys. Rev. E 98, 043304 (2018) [rule from
+  memory]: the first level j where
+  ``M_j = sum_{k>=j} n_k (gamma_k / sigma_k^2)^2`` (gamma_k the lag-one
+  autocovariance and sigma_k^2 the variance at level k) falls below the 99 %
+  quantile of chi-square with (number of levels - j) degrees of freedom.
+"""
+
+import logging
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from pymbar import timeseries
+from pymbar.utils import ParameterError
+from scipy.stats import chi2
+
+from .._validate import as_array, positive_int
+from ..errors import AnalysisError
+
+logger = logging.getLogger(__name__)
+
+MIN_SAMPLES = 32
+"""Shorter series are not analysed for equilibration or errors."""
+
+MIN_INDEPENDENT = 20
+"""Fewest effectively independent samples for which :func:`summarize` reports an error (common practice)."""
+
+
+def _series(series, name="series", min_length=2):
+    x = as_array(series, name, shape=(None,))
+    if x.size < min_length:
+        raise AnalysisError(f"{name}: need at least {min_length} samples, got {x.size}")
+    return x
+
+
+def statistical_inefficiency(series):
+    """Statistical inefficiency g of a time series (see the module notes).
+
+    Parameters
+    ----------
+    series : array_like, shape (n,), float64
+        Equally spaced samples, n >= 2.
+
+    Returns
+    -------
+    float
+        g >= 1, in units of the sampling interval.
+
+    Raises
+    ------
+    AnalysisError
+        The series is constant or too short.
+    """
+    x = _series(series)
+    if np.ptp(x) == 0:
+        raise AnalysisError("series: constant, so its statistical inefficiency is undefined")
+    try:
+        return float(timeseries.statistical_inefficiency(x, fast=False))
+    except ParameterError as exc:
+        raise AnalysisError(f"series: statistical inefficiency undefined ({exc})") from None
+
+
+def effective_sample_count(series):
+    """Number of effectively independent samples ``n / g`` of a time series (float)."""
+    x = _series(series)
+    return x.size / statistical_inefficiency(x)
+
+
+def detect_equilibration(series, n_origins=200):
+    """Start of the equilibrated part of a series (Chodera 2016).
+
+    Parameters
+    ----------
+    series : array_like, shape (n,), float64
+        Equally spaced samples, n >= :data:`MIN_SAMPLES`.
+    n_origins : int
+        Number of candidate start points tried (evenly spaced); bounds the cost.
+
+    Returns
+    -------
+    t0 : int
+        Index of the first equilibrated sample.
+    g : float
+        Statistical inefficiency of ``series[t0:]``.
+    n_independent : float
+        Effectively independent samples in ``series[t0:]``.
+    """
+    x = _series(series, min_length=MIN_SAMPLES)
+    n_origins = positive_int(n_origins, "n_origins")
+    t0, g, n_eff = timeseries.detect_equilibration(x, fast=True, nskip=max(1, x.size // n_origins))
+    return int(t0), float(g), float(n_eff)
+
+
+@dataclass(frozen=True)
+class Blocking:
+    """Flyvbjerg-Petersen blocking analysis of the mean of a series.
+
+    Attributes
+    ----------
+    n_blocks : ndarray, shape (n_levels,), int64
+        Samples (block averages) at each level; level 0 is the raw series.
+    errors : ndarray, shape (n_levels,), float64
+        Standard error of the mean estimated at each level,
+        ``sqrt(sigma_k^2 / (n_k - 1))``.
+    error_uncertainties : ndarray, shape (n_levels,), float64
+        Their own standard errors, ``errors / sqrt(2 (n_k - 1))``.
+    level : int or None
+        Plateau level chosen by Jonsson's test; None if no level passes (series too short).
+    error : float or None
+        ``errors[level]``, or None.
+    """
+
+    n_blocks: np.ndarray
+    errors: np.ndarray
+    error_uncertainties: np.ndarray
+    level: int | None
+    error: float | None
+
+
+def blocking(series):
+    """Blocking analysis (Flyvbjerg and Petersen 1989) with automated plateau choice.
+
+    Only the last ``2**floor(log2(n))`` samples are used, so every level halves exactly.
+
+    Parameters
+    ----------
+    series : array_like, shape (n,), float64
+        Equally spaced samples, n >= 4.
+
+    Returns
+    -------
+    Blocking
+    """
+    x = _series(series, min_length=4)
+    d = int(math.floor(math.log2(x.size)))
+    x = x[x.size - 2 ** d:]
+    mu = x.mean()
+    n_blocks, variances, gammas = [], [], []
+    for _ in range(d - 1):  # stop while two or more blocks remain
+        n = x.size
+        dev = x - mu
+        n_blocks.append(n)
+        variances.append(np.mean(dev * dev))
+        gammas.append(np.mean(dev[:-1] * dev[1:]) * (n - 1) / n)
+        x = 0.5 * (x[0::2] + x[1::2])
+    n_blocks = np.array(n_blocks, dtype=np.int64)
+    variances = np.array(variances)
+    gammas = np.array(gammas)
+    errors = np.sqrt(variances / (n_blocks - 1))
+    uncertainties = errors / np.sqrt(2.0 * (n_blocks - 1))
+    if np.all(variances == 0):
+        raise AnalysisError("series: constant, so its blocking error is undefined")
+    terms = n_blocks * (gammas / variances) ** 2
+    m_stat = np.cumsum(terms[::-1])[::-1]
+    thresholds = chi2.ppf(0.99, np.arange(len(terms), 0, -1))
+    passing = np.flatnonzero(m_stat < thresholds)
+    level = int(passing[0]) if passing.size else None
+    return Blocking(n_blocks=n_blocks, errors=errors, error_uncertainties=uncertainties, level=level,
+                    error=None if level is None else float(errors[level]))
+
+
+@dataclass(frozen=True)
+class Summary:
+    """Mean of a time series with its error, or the reason no error can be given.
+
+    Attributes
+    ----------
+    mean : float
+        Mean of the equilibrated part (of the whole series if it was too short to split).
+    error : float or None
+        Standard error of ``mean``; None when the run is too short (see ``reason``).
+    n_samples : int
+        Length of the whole series.
+    equilibration_index : int
+        First sample counted as equilibrated (0 if none were discarded).
+    statistical_inefficiency : float or None
+        g of the equilibrated part, in sampling intervals.
+    n_independent : float or None
+        Effectively independent samples in the equilibrated part.
+    blocking_error : float or None
+        Flyvbjerg-Petersen error of the equilibrated part, as a cross-check.
+    reason : str or None
+        Why ``error`` is None; None when the error is given.
+    """
+
+    mean: float
+    error: float | None
+    n_samples: int
+    equilibration_index: int
+    statistical_inefficiency: float | None
+    n_independent: float | None
+    blocking_error: float | None
+    reason: str | None
+
+    def as_dict(self):
+        """Plain-dict copy (JSON-ready)."""
+        return dict(self.__dict__)
+
+
+def summarize(series, min_independent=MIN_INDEPENDENT, detect=True):
+    """Mean, standard error and sample statistics of a time series, with a clear "too short" outcome.
+
+    Steps: (1) series shorter than :data:`MIN_SAMPLES` -> mean only, reason given;
+    (2) discard the start found by :func:`detect_equilibration` (if ``detect``);
+    (3) g and ``n_independent = n / g`` of the rest; (4) if fewer than
+    ``min_independent`` independent samples remain, or the equilibrated part
+    starts in the second half of the run, the error is withheld with a reason;
+    otherwise ``error = s * sqrt(g / n)`` with s the sample standard deviation.
+
+    Parameters
+    ----------
+    series : array_like, shape (n,), float64
+        Equally spaced samples (e.g. Rg per frame).
+    min_independent : float
+        Fewest independent samples for which an error is reported.
+    detect : bool
+        Detect and discard an equilibration period.
+
+    Returns
+    -------
+    Summary
+    """
+    x = as_array(series, "series", shape=(None,))
+    if x.size == 0:
+        raise AnalysisError("series: empty")
+    n = x.size
+
+    def short(reason, mean, t0=0, g=None, n_eff=None):
+        logger.info("no error bar: %s", reason)
+        return Summary(mean=float(mean), error=None, n_samples=n, equilibration_index=t0,
+                       statistical_inefficiency=g, n_independent=n_eff, blocking_error=None, reason=reason)
+
+    if n < MIN_SAMPLES:
+        return short(f"only {n} samples (need {MIN_SAMPLES} or more to estimate correlations)", x.mean())
+    if np.ptp(x) == 0:
+        return short("the series is constant", x.mean())
+    t0 = detect_equilibration(x)[0] if detect else 0
+    prod = x[t0:]
+    if prod.size < MIN_SAMPLES or np.ptp(prod) == 0:
+        return short(f"only {prod.size} usable samples after equilibration at sample {t0}", prod.mean(), t0)
+    g = statistical_inefficiency(prod)
+    n_eff = prod.size / g
+    if 2 * t0 > n:
+        return short(f"equilibration detected only at sample {t0} of {n}: the run looks unequilibrated",
+                     prod.mean(), t0, g, n_eff)
+    if n_eff < min_independent:
+        return short(f"only {n_eff:.1f} independent samples (g = {g:.1f}); need {min_independent}",
+                     prod.mean(), t0, g, n_eff)
+    return Summary(mean=float(prod.mean()), error=float(prod.std(ddof=1) * math.sqrt(g / prod.size)),
+                   n_samples=n, equilibration_index=t0, statistical_inefficiency=g, n_independent=n_eff,
+                   blocking_error=blocking(prod).error, reason=None)
