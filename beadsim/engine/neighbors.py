@@ -24,8 +24,10 @@ class NeighborList:
 
     def __init__(self, n_beads, cutoff, skin, excl_start, excl, box_lengths=None):
         self.cutoff = float(cutoff)
-        self.skin = float(skin)
-        self.r_list = self.cutoff + self.skin
+        # without pair interactions the list stays empty and is never rebuilt
+        self.active = self.cutoff > 0
+        self.skin = float(skin) if self.active else np.inf
+        self.r_list = self.cutoff + float(skin)
         if box_lengths is not None and self.r_list > 0.5 * float(np.min(box_lengths)):
             raise InputError(f"cutoff + skin = {self.r_list:.3f} sigma exceeds half the smallest box edge "
                              f"({0.5 * float(np.min(box_lengths)):.3f} sigma); use a larger box or shorter cutoff")
@@ -37,6 +39,8 @@ class NeighborList:
 
     def build(self, positions, box_lengths, periodic):
         """Rebuild the list around ``positions`` (float64 (n, 3), sigma)."""
+        if not self.active:
+            return
         self.nbr = refresh_list(positions, box_lengths, periodic, self.r_list, self.excl_start, self.excl,
                                 self.start, self.nbr, self.ref)
 

@@ -36,8 +36,10 @@ def _cell_layout(pos, box, periodic, r_list):
     coords = np.empty((n, 3), dtype=np.int64)
     ncell = np.ones(3, dtype=np.int64)
     if periodic:
+        # cells at least r_list wide, and no more cells than about 2 n (dilute boxes)
+        width = max(r_list, (box[0] * box[1] * box[2] / (2.0 * n)) ** (1.0 / 3.0))
         for d in range(3):
-            ncell[d] = max(1, int(math.floor(box[d] / r_list)))
+            ncell[d] = max(1, int(math.floor(box[d] / width)))
         for i in range(n):
             for d in range(3):
                 x = pos[i, d] - box[d] * math.floor(pos[i, d] / box[d])
