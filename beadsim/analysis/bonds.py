@@ -17,6 +17,8 @@ from ..errors import AnalysisError, InputError
 from ._common import check_chains, check_positions, line_fit
 from .trajectory import find_chains, trajectory_positions
 
+_CHUNK_ELEMENTS = 4_000_000  # bond-vector components transformed at once (bounds memory)
+
 
 def _bond_vectors(positions, chains):
     x = check_positions(positions)
@@ -107,11 +109,13 @@ def bond_correlation(positions, chains):
     total = np.zeros(n_max)
     count = np.zeros(n_max)
     for b in vectors:
-        n = b.shape[1]
-        spectrum = np.fft.rfft(b, n=2 * n, axis=1)
-        corr = np.fft.irfft(np.sum(spectrum * spectrum.conj(), axis=-1).real, n=2 * n, axis=1)[:, :n]
-        total[:n] += corr.sum(axis=0)
-        count[:n] += b.shape[0] * (n - np.arange(n))
+        n_frames, n = b.shape[:2]
+        step = max(1, _CHUNK_ELEMENTS // (3 * n))
+        for start in range(0, n_frames, step):
+            spectrum = np.fft.rfft(b[start:start + step], n=2 * n, axis=1)
+            power = np.sum(spectrum.real ** 2 + spectrum.imag ** 2, axis=-1)
+            total[:n] += np.fft.irfft(power, n=2 * n, axis=1)[:, :n].sum(axis=0)
+        count[:n] += n_frames * (n - np.arange(n))
     mean = total / count
     return mean / mean[0]
 
