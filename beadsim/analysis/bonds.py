@@ -183,7 +183,10 @@ def persistence_length(correlation, mean_bond_length, cutoff=np.exp(-2.0)):
 
 
 def compute_bond_lengths(traj, chains=None, length_scale=None):
-    """Backbone bond lengths, shape (n_frames, n_bonds), of an mdtraj trajectory (nm, or sigma with ``length_scale``)."""
+    """Backbone bond lengths, shape (n_frames, n_bonds), of an mdtraj trajectory.
+
+    Lengths in nm, or in sigma when ``length_scale`` (nm per sigma) is given.
+    """
     x = trajectory_positions(traj, length_scale)
     return bond_lengths(x, find_chains(traj.topology) if chains is None else chains)
 

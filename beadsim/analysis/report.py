@@ -168,8 +168,8 @@ def analyze_file(traj_path, top_path=None, out_dir="analysis_output", frames=Non
         mean_bond = float(np.median(np.linalg.norm(np.diff(x[0, chains[0]], axis=0), axis=1)))
 
     pd.DataFrame(series).to_csv(out("series.csv"), index=False)
-    plots.time_series(times, np.sqrt(rg2_frame), out(f"rg_series.{figure_format}"), t0, label="sqrt<Rg^2>",
-                      unit=unit)
+    plots.time_series(times, np.sqrt(rg2_frame), out(f"rg_series.{figure_format}"), t0,
+                      label=r"$\sqrt{\langle R_g^2 \rangle}$", unit=unit)
 
     rg_rms = math.sqrt(rg_summary["mean"])
     q = np.geomspace(0.2 / rg_rms, 10.0 / mean_bond, n_q)
@@ -272,7 +272,8 @@ def format_table(summary):
              f"{'quantity':<28}{'mean':>12}{'std error':>12}{'independent':>13}  unit"]
     notes = []
     for name, q in summary["quantities"].items():
-        lines.append(f"{name:<28}{_fmt(q['mean']):>12}{_fmt(q['error']):>12}{_fmt(q['n_independent']):>13}  {q['unit']}")
+        lines.append(f"{name:<28}{_fmt(q['mean']):>12}{_fmt(q['error']):>12}"
+                     f"{_fmt(q['n_independent']):>13}  {q['unit']}")
         if q["error"] is None and q.get("reason"):
             notes.append(f"  {name}: {q['reason']}")
     if summary["fits"]:

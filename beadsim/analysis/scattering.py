@@ -96,17 +96,22 @@ def form_factor(positions, chains, q, method="auto", bin_width=None, *, chunk_el
         n_group, n = index.shape
         use_histogram = method == "histogram" or (method == "auto" and n > HISTOGRAM_MIN_BEADS)
         step = max(1, chunk_elements // (3 * index.size))
-        chunks = [x[start:start + step][:, index] for start in range(0, n_frames, step)]
+
+        def chunks():
+            for start in range(0, n_frames, step):
+                yield np.ascontiguousarray(x[start:start + step][:, index])
+
         if use_histogram:
+            # no pair in a chain is farther apart than twice the largest distance from its centroid
             r_max = max(2.0 * np.sqrt(np.max(np.sum((c - c.mean(axis=2, keepdims=True)) ** 2, axis=-1)))
-                        for c in chunks)
+                        for c in chunks())
             n_bins = int(r_max / dr) + 3
-            hist = sum(linear_binned_pair_distances(np.ascontiguousarray(c), dr, n_bins) for c in chunks)
+            hist = sum(linear_binned_pair_distances(c, dr, n_bins) for c in chunks())
             r = dr * np.arange(n_bins)
             pair_sum = np.sinc(np.outer(q, r) / np.pi) @ hist
             logger.debug("form factor of %d-bead chains by histogram: %d bins of %g", n, n_bins, dr)
         else:
-            pair_sum = sum(debye_sum(np.ascontiguousarray(c), q).sum(axis=(0, 1)) for c in chunks)
+            pair_sum = sum(debye_sum(c, q).sum(axis=(0, 1)) for c in chunks())
         total += (n * n_group * n_frames + 2.0 * pair_sum) / (n * n)
     return total / (len(chains) * n_frames)
 

@@ -16,7 +16,7 @@ Definitions (for a chain of N beads with positions r_i, masses m_i, M = sum m_i)
   (0 for spherical symmetry, 1 for a rod);
 * end-to-end vector ``Re = r_N - r_1``;
 * Kirkwood hydrodynamic radius ``1/Rh = (1/N^2) sum_{i != j} 1/r_ij``
-  (Kirkwood and Riseman, J. Chem. Phys. 16, 565, 1948). The per-frame value
+  (Kirkwood and Riseman, J. Chem. Phys. 16, 565, 1948 [from memory]). The per-frame value
   returned is ``N^2 / sum_{i != j} 1/r_ij``; the ensemble value is
   ``1 / mean(1/Rh)``, not ``mean(Rh)``.
 """
@@ -249,6 +249,9 @@ def compute_shape(traj, chains=None, length_scale=None):
 
 
 def compute_hydrodynamic_radius(traj, chains=None, length_scale=None):
-    """Kirkwood hydrodynamic radius, shape (n_frames, n_chains), of an mdtraj trajectory (arguments as :func:`compute_rg`)."""
+    """Kirkwood hydrodynamic radius, shape (n_frames, n_chains), of an mdtraj trajectory.
+
+    Arguments as for :func:`compute_rg`.
+    """
     x, chains = _prepare(traj, chains, length_scale)
     return hydrodynamic_radius(x, chains)

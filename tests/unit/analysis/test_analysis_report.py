@@ -6,8 +6,9 @@ import mdtraj
 import numpy as np
 import pytest
 
+from beadsim import plots
 from beadsim.analysis import analyze_file, format_table
-from beadsim.errors import AnalysisError
+from beadsim.errors import AnalysisError, InputError
 
 
 @pytest.fixture
@@ -64,3 +65,8 @@ def test_short_run_reports_reasons_instead_of_errors(run_file, tmp_path):
     rg2 = summary["quantities"]["rg_squared"]
     assert rg2["error"] is None and "only 10 samples" in rg2["reason"]
     assert "no error bar" in format_table(summary)
+
+
+def test_figure_path_must_be_png_or_svg(tmp_path):
+    with pytest.raises(InputError, match="figure.jpg: figure files must end in .png or .svg"):
+        plots.histogram(np.arange(3.0), np.ones(3), tmp_path / "figure.jpg", "bond length [nm]")

@@ -5,7 +5,8 @@ import math
 import numpy as np
 import pytest
 
-from beadsim.analysis import debye_function, form_factor, guinier_rg, histogram_error_bound, structure_factor
+from beadsim.analysis import (debye_function, form_factor, guinier_rg, histogram_error_bound, kratky,
+                              structure_factor)
 from beadsim.kernels.scattering import (debye_sum, debye_sum_reference, linear_binned_pair_distances,
                                         linear_binned_pair_distances_reference)
 
@@ -57,6 +58,14 @@ def test_debye_function_series_branch_is_continuous():
     x = np.array([1e-3 * (1 - 1e-9), 1e-3 * (1 + 1e-9)])
     series = sum(2 * (-x) ** k / math.factorial(k + 2) for k in range(5))
     np.testing.assert_allclose(debye_function(x), series, rtol=1e-12)
+
+
+def test_kratky_plateau_of_debye_function():
+    # q^2 P(q) of the Debye function tends to 2/Rg^2 as 2/Rg^2 (1 - 1/x + ...), x = (q Rg)^2 (expansion of
+    # 2(exp(-x) + x - 1)/x^2); at q Rg = 100 the correction is 1e-4
+    rg = 3.0
+    q = np.array([100.0 / rg])
+    np.testing.assert_allclose(kratky(q, debye_function((q * rg) ** 2)), 2 / rg ** 2 * (1 - 1e-4), rtol=1e-12)
 
 
 def test_debye_kernel_equals_numpy_twin(gaussian_chains):
