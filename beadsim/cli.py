@@ -1,0 +1,86 @@
+"""Command line: parse, validate, call the library, map beadsim errors to exit status 2."""
+
+import argparse
+import logging
+import sys
+from pathlib import Path
+
+from . import __version__
+from .errors import BeadsimError
+
+EXIT_INPUT = 2
+EXIT_INTERRUPTED = 130
+
+
+def _cmd_run(args):
+    from .config import read_settings
+    from .runner import run
+
+    settings = read_settings(args.input)
+    out = Path(args.out) if args.out else Path(f"{Path(args.input).stem}_run")
+    if not args.quiet:
+        print(f"beadsim: compiling kernels on first use (cached afterwards); output folder {out}", file=sys.stderr)
+    summary = run(settings, out, resume=args.resume, overwrite=args.overwrite, progress=not args.quiet)
+    print(f"done: {summary['final_step']} steps, {summary['bead_steps_per_second']:.3g} bead-steps/s, "
+          f"outputs in {out}")
+    return 0
+
+
+def _cmd_analyze(args):
+    from .analysis.report import analyze_file, format_table
+
+    frames = None
+    if args.first is not None or args.last is not None:
+        frames = (args.first, args.last)
+    summary = analyze_file(args.trajectory, top_path=args.top, out_dir=args.out, frames=frames,
+                           length_scale=args.length_scale)
+    print(format_table(summary))
+    print(f"tables and figures in {args.out}")
+    return 0
+
+
+def build_parser():
+    """The argument parser of the ``beadsim`` command."""
+    parser = argparse.ArgumentParser(prog="beadsim", description="Coarse-grained bead-spring polymer chains: "
+                                     "simulate, analyse, find the theta point.")
+    parser.add_argument("--version", action="version", version=f"beadsim {__version__}")
+    parser.add_argument("-v", "--verbose", action="store_true", help="log progress details")
+    sub = parser.add_subparsers(dest="command", required=True)
+
+    p = sub.add_parser("run", help="minimise, equilibrate and sample one system from an input file")
+    p.add_argument("input", help="input file (TOML)")
+    p.add_argument("--out", help="output folder (default: <input name>_run)")
+    group = p.add_mutually_exclusive_group()
+    group.add_argument("--resume", action="store_true", help="continue the run in the output folder")
+    group.add_argument("--overwrite", action="store_true", help="replace a run already in the output folder")
+    p.add_argument("--quiet", action="store_true", help="no progress bar (batch use)")
+    p.set_defaults(func=_cmd_run)
+
+    p = sub.add_parser("analyze", help="size, shape, scattering and errors of a trajectory mdtraj can read")
+    p.add_argument("trajectory", help="trajectory file")
+    p.add_argument("--top", help="topology file for formats without one (.xtc, .dcd)")
+    p.add_argument("--out", default="analysis_output", help="folder for tables and figures")
+    p.add_argument("--first", type=int, help="first frame to use (default: 0)")
+    p.add_argument("--last", type=int, help="frame to stop before (default: end)")
+    p.add_argument("--length-scale", type=float, help="nm per sigma: report lengths in sigma")
+    p.set_defaults(func=_cmd_analyze)
+    return parser
+
+
+def main(argv=None):
+    """Entry point of the ``beadsim`` console script; returns the exit status."""
+    args = build_parser().parse_args(argv)
+    logging.basicConfig(level=logging.INFO if args.verbose else logging.WARNING,
+                        format="beadsim: %(message)s")
+    try:
+        return args.func(args)
+    except BeadsimError as exc:
+        print(f"beadsim: error: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print("beadsim: interrupted; the last checkpoint is kept (continue with --resume)", file=sys.stderr)
+        return EXIT_INTERRUPTED
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,260 @@
+"""Input files (TOML) -> validated, typed settings.
+
+Every message names the file, the section and key, and what is allowed. The
+schema below is the single source of truth for the input reference in the
+README: each entry is ``key: (type, default, rule, help)``; a default of
+``REQUIRED`` marks a key that must be given.
+
+Solvent-quality presets (section ``[solvent]``) fill in the non-bonded
+potential and the temperature from the theta points shipped in
+``beadsim/data/theta_points.toml``.
+"""
+
+import difflib
+import hashlib
+import json
+import math
+import sys
+from importlib import resources
+from pathlib import Path
+
+from .errors import InputError
+from .model.potentials import BOND_POTENTIALS, EXCLUSIONS, PAIR_POTENTIALS
+from .engine.integrators import INTEGRATORS
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+REQUIRED = object()
+
+
+def _choice(*allowed):
+    return ("one of " + ", ".join(map(str, allowed)), lambda v: v in allowed)
+
+
+_POSITIVE = ("a number > 0", lambda v: v > 0)
+_NON_NEGATIVE = ("a number >= 0", lambda v: v >= 0)
+_AT_LEAST_ONE = ("an integer >= 1", lambda v: v >= 1)
+_ANY = ("any value", lambda v: True)
+
+SCHEMA = {
+    "chains": {
+        "count": (int, 1, _AT_LEAST_ONE, "number of chains"),
+        "length": ((int, list), REQUIRED, ("an integer >= 2 or a list of them", None),
+                   "beads per chain: one number for all chains, or one per chain"),
+    },
+    "box": {
+        "kind": (str, "open", _choice("open", "periodic"), "open: isolated chain(s), no images; periodic: cubic box"),
+        "density": (float, 0.85, _POSITIVE, "bead number density of a periodic box, sigma^-3"),
+        "min_distance": (float, 0.8, _POSITIVE, "closest two beads may be in the grown start structure, sigma"),
+    },
+    "bonds": {
+        "potential": (str, "fene", _choice(*BOND_POTENTIALS), "bond potential"),
+        "stiffness": (float, None, _POSITIVE, "spring constant, epsilon/sigma^2 (fene: 30, harmonic: 100)"),
+        "max_extension": (float, 1.5, _POSITIVE, "FENE R0, sigma"),
+        "rest_length": (float, 1.0, _NON_NEGATIVE, "harmonic rest length, sigma"),
+        "table": (str, None, _ANY, "table file (r U [F]) for potential = 'table', relative to the input file"),
+        "bond_length": (float, 0.97, _POSITIVE, "bond length of the grown start structure, sigma"),
+    },
+    "nonbonded": {
+        "potential": (str, "wca", _choice(*PAIR_POTENTIALS), "non-bonded pair potential"),
+        "epsilon": (float, 1.0, _NON_NEGATIVE, "energy scale (LJ well depth, WCA/cosine-squared core), epsilon"),
+        "sigma": (float, 1.0, _POSITIVE, "bead diameter, sigma"),
+        "cutoff": (float, 2.5, _POSITIVE, "lennard_jones cutoff, sigma"),
+        "shift": (bool, True, _ANY, "lennard_jones: shift the energy to zero at the cutoff"),
+        "depth": (float, 1.0, _NON_NEGATIVE, "cosine_squared attraction depth phi, epsilon"),
+        "table": (str, None, _ANY, "table file (r U [F]) for potential = 'table', relative to the input file"),
+        "exclude": (str, "none", _choice(*EXCLUSIONS), "bead pairs without non-bonded forces"),
+    },
+    "bending": {
+        "stiffness": (float, 0.0, _NON_NEGATIVE, "kappa in U = kappa (1 - cos theta), epsilon; 0 = flexible"),
+    },
+    "solvent": {
+        "quality": (str, None, _choice("good", "theta", "poor"),
+                    "preset: good = WCA at the set temperature; theta / poor = lennard_jones 2.5 at the "
+                    "model's theta temperature / at 0.6 of it"),
+        "relative_temperature": (float, None, _POSITIVE,
+                                 "instead of quality: lennard_jones 2.5 at this multiple of its theta temperature"),
+    },
+    "dynamics": {
+        "integrator": (str, "baoab", _choice(*INTEGRATORS), "integration scheme"),
+        "timestep": (float, 0.005, _POSITIVE, "dt, tau"),
+        "temperature": (float, 1.0, _POSITIVE, "kT, epsilon"),
+        "friction": (float, 0.5, _POSITIVE, "Langevin friction gamma, 1/tau"),
+        "skin": (float, 0.4, _POSITIVE, "Verlet-list skin, sigma"),
+    },
+    "run": {
+        "seed": (int, REQUIRED, ("an integer >= 0", lambda v: v >= 0), "seed of the start structure and the noise"),
+        "minimize": (bool, True, _ANY, "remove overlaps with FIRE before dynamics"),
+        "equilibration_steps": (int, 10_000, ("an integer >= 0", lambda v: v >= 0), "steps before frames are saved"),
+        "production_steps": (int, 100_000, _AT_LEAST_ONE, "steps with frames saved"),
+    },
+    "output": {
+        "trajectory": (str, "trajectory.h5", ("a file name ending .h5, .dcd, .xtc or .pdb",
+                                              lambda v: Path(v).suffix in (".h5", ".dcd", ".xtc", ".pdb")
+                                              and Path(v).name == v),
+                       "trajectory file inside the output folder; format from the extension"),
+        "frame_interval": (int, 1000, _AT_LEAST_ONE, "steps between saved frames"),
+        "table_interval": (int, 100, _AT_LEAST_ONE, "steps between rows of the scalar table"),
+        "checkpoint_interval": (int, 10_000, _AT_LEAST_ONE, "steps between checkpoints"),
+        "length_scale_nm": (float, 1.0, _POSITIVE, "sigma in nm for the written trajectory"),
+    },
+}
+
+PRESET_POOR_FRACTION = 0.6
+
+
+def load_theta_points():
+    """The shipped theta-point table: ``{model: {theta, uncertainty, source, ...}}``."""
+    text = resources.files("beadsim").joinpath("data/theta_points.toml").read_text()
+    return tomllib.loads(text)
+
+
+def read_settings(path):
+    """Read and validate an input file.
+
+    Parameters
+    ----------
+    path : path-like
+        TOML input file.
+
+    Returns
+    -------
+    dict
+        ``{section: {key: value}}`` with every default filled in, presets
+        resolved and table paths made absolute.
+
+    Raises
+    ------
+    InputError
+        With the file, section, key and what is allowed.
+    """
+    path = Path(path)
+    try:
+        raw = tomllib.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise InputError(f"{path}: input file not found") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"{path}: cannot read the input file ({exc})") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"{path}: not valid TOML ({exc})") from None
+    return validate(raw, source=str(path), base=path.parent)
+
+
+def _suggest(word, choices):
+    close = difflib.get_close_matches(word, list(choices), n=1, cutoff=0.5)
+    return f" (did you mean '{close[0]}'?)" if close else ""
+
+
+def validate(raw, source="input", base=Path(".")):
+    """Validate a parsed input mapping against :data:`SCHEMA`; see :func:`read_settings`."""
+    settings = {}
+    for section in raw:
+        if section not in SCHEMA:
+            raise InputError(f"{source}: unknown section [{section}]{_suggest(section, SCHEMA)}; "
+                             f"sections are {', '.join(SCHEMA)}")
+        if not isinstance(raw[section], dict):
+            raise InputError(f"{source}: '{section}' must be a section [{section}], not a single value")
+    for section, keys in SCHEMA.items():
+        given = raw.get(section, {})
+        for key in given:
+            if key not in keys:
+                raise InputError(f"{source}: [{section}] unknown key '{key}'{_suggest(key, keys)}; "
+                                 f"allowed keys: {', '.join(keys)}")
+        settings[section] = {key: _value(source, section, key, spec, given) for key, spec in keys.items()}
+    _resolve(settings, source, base)
+    return settings
+
+
+def _value(source, section, key, spec, given):
+    kind, default, (rule_text, rule), _ = spec
+    where = f"{source}: [{section}] {key}"
+    if key not in given:
+        if default is REQUIRED:
+            raise InputError(f"{where} is required ({rule_text})")
+        return default
+    value = given[key]
+    kinds = kind if isinstance(kind, tuple) else (kind,)
+    if float in kinds and isinstance(value, int) and not isinstance(value, bool):
+        value = float(value)
+    if isinstance(value, bool) and bool not in kinds or not isinstance(value, kinds):
+        names = " or ".join("list" if k is list else k.__name__ for k in kinds)
+        raise InputError(f"{where}: expected {names}, got {type(value).__name__} {value!r}")
+    if isinstance(value, float) and not math.isfinite(value):
+        raise InputError(f"{where}: must be finite, got {value!r}")
+    if rule is not None and not rule(value):
+        raise InputError(f"{where}: must be {rule_text}, got {value!r}")
+    return value
+
+
+def _resolve(s, source, base):
+    """Cross-key checks, presets and derived values."""
+    lengths = s["chains"]["length"]
+    count = s["chains"]["count"]
+    if isinstance(lengths, list):
+        if len(lengths) != count or not all(isinstance(v, int) and not isinstance(v, bool) and v >= 2
+                                            for v in lengths):
+            raise InputError(f"{source}: [chains] length: a list must hold {count} integers >= 2 "
+                             f"(one per chain, count = {count}), got {lengths!r}")
+    elif lengths < 2:
+        raise InputError(f"{source}: [chains] length: must be an integer >= 2, got {lengths!r}")
+    else:
+        s["chains"]["length"] = [lengths] * count
+    if s["bonds"]["stiffness"] is None:
+        s["bonds"]["stiffness"] = 30.0 if s["bonds"]["potential"] == "fene" else 100.0
+    for section in ("bonds", "nonbonded"):
+        if s[section]["potential"] == "table":
+            if not s[section]["table"]:
+                raise InputError(f"{source}: [{section}] table: a table file is required when potential = 'table'")
+            s[section]["table"] = str((base / s[section]["table"]).resolve())
+    nb = s["nonbonded"]
+    if nb["potential"] == "lennard_jones" and nb["cutoff"] < 2 ** (1 / 6) * nb["sigma"]:
+        raise InputError(f"{source}: [nonbonded] cutoff: {nb['cutoff']} is below the LJ minimum 2^(1/6) sigma "
+                         f"= {2 ** (1 / 6) * nb['sigma']:.4f}; use potential = 'wca' for pure repulsion")
+    if s["bonds"]["potential"] == "fene" and s["bonds"]["bond_length"] >= s["bonds"]["max_extension"]:
+        raise InputError(f"{source}: [bonds] max_extension: FENE R0 = {s['bonds']['max_extension']} must exceed "
+                         f"the start bond_length = {s['bonds']['bond_length']}")
+    _apply_solvent_preset(s, source)
+
+
+def _apply_solvent_preset(s, source):
+    quality, relative = s["solvent"]["quality"], s["solvent"]["relative_temperature"]
+    if quality is None and relative is None:
+        return
+    if quality is not None and relative is not None:
+        raise InputError(f"{source}: [solvent] give either quality or relative_temperature, not both")
+    if quality == "good":
+        s["nonbonded"].update(potential="wca")
+        return
+    entry = load_theta_points()["lennard_jones_2_5"]
+    factor = relative if relative is not None else {"theta": 1.0, "poor": PRESET_POOR_FRACTION}[quality]
+    s["nonbonded"].update(potential="lennard_jones", cutoff=2.5, shift=True, epsilon=1.0, sigma=1.0)
+    s["dynamics"]["temperature"] = factor * entry["theta"]
+
+
+def settings_hash(settings):
+    """SHA-256 of the resolved settings (canonical JSON), identifying a run."""
+    return hashlib.sha256(json.dumps(settings, sort_keys=True).encode()).hexdigest()
+
+
+def to_toml(settings):
+    """Render resolved settings as TOML text (the 'resolved input' copy written with a run)."""
+    lines = ["# resolved input: every default filled in, presets applied"]
+    for section, values in settings.items():
+        lines.append(f"\n[{section}]")
+        for key, value in values.items():
+            if value is not None:
+                lines.append(f"{key} = {_toml_value(value)}")
+    return "\n".join(lines) + "\n"
+
+
+def _toml_value(v):
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, list):
+        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
+    if isinstance(v, str):
+        return json.dumps(v)
+    return repr(v)

@@ -1,0 +1,275 @@
+"""Run one simulation from validated settings into an output folder, resumable at any moment.
+
+Folder contents (names fixed here, documented in the README):
+
+``input.toml``          the fully resolved input
+``trajectory.h5``       frames of the production phase (name and format from ``[output] trajectory``)
+``observables.csv``     scalar table, one row every ``table_interval`` steps
+``checkpoint.npz``      last checkpoint (atomic; no pickle)
+``summary.json``        versions, seed, threads, input hash, wall time, throughput
+
+Resuming cuts the trajectory and the table back to the checkpoint's step and
+continues them; because the thermostat noise is a function of (seed, step)
+and the Verlet list is rebuilt from its saved reference positions, a resumed
+run reproduces an uninterrupted one bit for bit.
+"""
+
+import json
+import logging
+import math
+import os
+import platform
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+from . import __version__
+from .config import settings_hash, to_toml
+from .engine.integrators import make_integrator
+from .engine.loop import iterate, snapshot
+from .engine.simulation import Simulation
+from .errors import InputError
+from .io import (ScalarTable, TrajectoryWriter, make_topology, read_checkpoint, truncate_table,
+                 truncate_trajectory, write_checkpoint)
+from .model.build import build_chains
+from .model.potentials import (FENE, WCA, Bending, CosineSquared, ForceField, HarmonicBond, LennardJones, NoPair,
+                               TabulatedBond, TabulatedPair)
+
+log = logging.getLogger(__name__)
+
+INPUT_FILE = "input.toml"
+TABLE_FILE = "observables.csv"
+CHECKPOINT_FILE = "checkpoint.npz"
+SUMMARY_FILE = "summary.json"
+
+#: Scalar table columns: name -> unit.
+COLUMNS = {
+    "time": "tau",
+    "pair_energy": "epsilon",
+    "bond_energy": "epsilon",
+    "bending_energy": "epsilon",
+    "potential_energy": "epsilon",
+    "kinetic_energy": "epsilon",
+    "total_energy": "epsilon",
+    "kinetic_temperature": "epsilon/k_B",
+    "pressure": "epsilon/sigma^3 (periodic boxes; empty otherwise)",
+    "radius_of_gyration": "sigma (root-mean-square over chains)",
+    "end_to_end_distance": "sigma (root-mean-square over chains)",
+}
+
+
+def build_forcefield(settings):
+    """ForceField from the ``[bonds]``, ``[nonbonded]`` and ``[bending]`` sections."""
+    b, nb = settings["bonds"], settings["nonbonded"]
+    bond = {"fene": lambda: FENE(b["stiffness"], b["max_extension"]),
+            "harmonic": lambda: HarmonicBond(b["stiffness"], b["rest_length"]),
+            "table": lambda: TabulatedBond(b["table"])}
+    pair = {"none": NoPair,
+            "wca": lambda: WCA(nb["epsilon"], nb["sigma"]),
+            "lennard_jones": lambda: LennardJones(nb["epsilon"], nb["sigma"], nb["cutoff"], nb["shift"]),
+            "cosine_squared": lambda: CosineSquared(nb["depth"], nb["epsilon"], nb["sigma"]),
+            "table": lambda: TabulatedPair(nb["table"])}
+    stiff = settings["bending"]["stiffness"]
+    return ForceField(pair[nb["potential"]](), bond[b["potential"]](),
+                      bending=Bending(stiff) if stiff > 0 else None, exclude=nb["exclude"])
+
+
+def build_simulation(settings):
+    """System, force field and integrator from settings, as a ready Simulation (not minimised)."""
+    c, box, dyn = settings["chains"], settings["box"], settings["dynamics"]
+    system = build_chains(c["length"], density=box["density"] if box["kind"] == "periodic" else None,
+                          bond_length=settings["bonds"]["bond_length"], min_distance=box["min_distance"],
+                          seed=settings["run"]["seed"])
+    integrator = make_integrator(dyn["integrator"], timestep=dyn["timestep"], temperature=dyn["temperature"],
+                                 friction=dyn["friction"])
+    return Simulation(system, build_forcefield(settings), integrator, seed=settings["run"]["seed"],
+                      skin=dyn["skin"])
+
+
+def chain_sizes(positions, offsets):
+    """Root-mean-square radius of gyration and end-to-end distance over chains.
+
+    Parameters
+    ----------
+    positions : float64 (n, 3)
+        Unwrapped positions, sigma.
+    offsets : int64 (n_chains + 1,)
+        Chain boundaries.
+
+    Returns
+    -------
+    (float, float)
+        Rg and Re, sigma.
+    """
+    rg2, re2 = [], []
+    for a, b in zip(offsets[:-1], offsets[1:]):
+        x = positions[a:b]
+        rg2.append(np.mean(np.sum((x - x.mean(axis=0)) ** 2, axis=1)))
+        re2.append(np.sum((x[-1] - x[0]) ** 2))
+    return math.sqrt(np.mean(rg2)), math.sqrt(np.mean(re2))
+
+
+def frames_before(step, settings):
+    """Number of trajectory frames an uninterrupted run has written once it reaches ``step``."""
+    fi = settings["output"]["frame_interval"]
+    eq = settings["run"]["equilibration_steps"]
+    return max(0, step // fi - eq // fi)
+
+
+class _Recorder:
+    """Observer dispatching snapshots to the trajectory, the table and checkpoints by step."""
+
+    def __init__(self, sim, settings, out, mode):
+        o = settings["output"]
+        self.sim, self.settings, self.out = sim, settings, out
+        self.offsets = sim.system.chain_offsets
+        topology = make_topology(sim.system.chain_lengths, sim.system.bonds)
+        self.trajectory = TrajectoryWriter(out / o["trajectory"], topology, o["length_scale_nm"],
+                                           sim.system.box.lengths, mode=mode)
+        self.table = ScalarTable(out / TABLE_FILE, tuple(COLUMNS), mode=mode)
+        self.every = math.gcd(math.gcd(o["frame_interval"], o["table_interval"]), o["checkpoint_interval"])
+
+    def append(self, snap):
+        o = self.settings["output"]
+        if snap.step % o["table_interval"] == 0:
+            rg, re = chain_sizes(snap.positions, self.offsets)
+            obs = snap.observables
+            row = {k: obs.get(k, float("nan")) for k in COLUMNS}
+            row.update(time=snap.time, radius_of_gyration=rg, end_to_end_distance=re)
+            self.table.append(snap.step, row)
+        if snap.step % o["frame_interval"] == 0 and snap.step > self.settings["run"]["equilibration_steps"]:
+            self.trajectory.append(snap.step, snap.time, snap.positions)
+        if snap.step % o["checkpoint_interval"] == 0:
+            self.checkpoint()
+
+    def checkpoint(self):
+        """Flush outputs to disk, then write the checkpoint atomically (outputs never lag behind it)."""
+        self.table.flush()
+        self.trajectory.flush()
+        write_checkpoint(self.out / CHECKPOINT_FILE, self.sim.state_arrays(),
+                         {"input_hash": settings_hash(self.settings), "beadsim": __version__})
+
+    def close(self):
+        self.table.close()
+        self.trajectory.close()
+
+
+def prepare_folder(out, settings, resume, overwrite):
+    """Create or check the output folder; refuse to mix two different runs.
+
+    Raises
+    ------
+    InputError
+        Folder not writable, or holding another run without ``resume``/``overwrite``.
+    """
+    out = Path(out)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        probe = out / ".write-test"
+        probe.write_text("")
+        probe.unlink()
+    except OSError as exc:
+        raise InputError(f"{out}: output folder is not writable ({exc.strerror or exc}); choose another "
+                         "folder with --out") from None
+    existing = out / INPUT_FILE
+    if existing.exists() and not overwrite:
+        same = existing.read_text(encoding="utf-8") == to_toml(settings)
+        if not resume:
+            raise InputError(f"{out}: folder already holds a run ({INPUT_FILE}); use --resume to continue it, "
+                             "--overwrite to replace it, or --out for a new folder")
+        if not same:
+            raise InputError(f"{out}: folder holds a run with a different input; --resume needs the same input "
+                             "file (or use --overwrite or another --out)")
+    if overwrite:
+        for name in (INPUT_FILE, TABLE_FILE, CHECKPOINT_FILE, SUMMARY_FILE, settings["output"]["trajectory"]):
+            (out / name).unlink(missing_ok=True)
+    return out
+
+
+def run(settings, out, *, resume=False, overwrite=False, progress=True):
+    """Minimise, equilibrate and sample as the settings say, writing everything into ``out``.
+
+    Parameters
+    ----------
+    settings : dict
+        From :func:`beadsim.config.read_settings`.
+    out : path-like
+        Output folder.
+    resume : bool
+        Continue from the folder's last checkpoint.
+    overwrite : bool
+        Replace a run already in the folder.
+    progress : bool
+        Show a progress bar with steps per second and ETA.
+
+    Returns
+    -------
+    dict
+        The run summary (also written to ``summary.json``).
+    """
+    out = prepare_folder(out, settings, resume, overwrite)
+    sim = build_simulation(settings)
+    total = settings["run"]["equilibration_steps"] + settings["run"]["production_steps"]
+    checkpoint = out / CHECKPOINT_FILE
+    resuming = resume and checkpoint.exists()
+    if resuming:
+        arrays, _ = read_checkpoint(checkpoint)
+        sim.restore(arrays)
+        truncate_table(out / TABLE_FILE, sim.step_count)
+        traj = out / settings["output"]["trajectory"]
+        if traj.exists():
+            truncate_trajectory(traj, frames_before(sim.step_count, settings))
+        log.info("resuming %s at step %d", out, sim.step_count)
+    else:
+        (out / INPUT_FILE).write_text(to_toml(settings), encoding="utf-8")
+        if settings["run"]["minimize"]:
+            sim.minimize()
+    recorder = _Recorder(sim, settings, out, "a" if resuming else "w")
+    start_step, started = sim.step_count, time.perf_counter()
+    bar = _progress(total, start_step, progress)
+    try:
+        if not resuming:
+            recorder.append(snapshot(sim))
+        for snap in iterate(sim, total - sim.step_count, recorder.every):
+            recorder.append(snap)
+            bar.update(snap.step - bar.n)
+        if sim.step_count % settings["output"]["checkpoint_interval"]:
+            recorder.checkpoint()
+    finally:
+        bar.close()
+        recorder.close()
+    wall = time.perf_counter() - started
+    summary = _summary(settings, sim, wall, sim.step_count - start_step)
+    (out / SUMMARY_FILE).write_text(json.dumps(summary, indent=2) + "\n", encoding="utf-8")
+    return summary
+
+
+def _progress(total, start, enabled):
+    from tqdm import tqdm
+    return tqdm(total=total, initial=start, unit="step", unit_scale=True, disable=not enabled,
+                desc="beadsim run", smoothing=0.1, file=sys.stderr)
+
+
+def _summary(settings, sim, wall, steps):
+    import mdtraj
+    import numba
+    return {
+        "beadsim": __version__,
+        "python": platform.python_version(),
+        "numpy": np.__version__,
+        "numba": numba.__version__,
+        "mdtraj": mdtraj.__version__,
+        "numba_threads": numba.get_num_threads(),
+        "machine": f"{platform.machine()} {platform.processor() or ''} ({os.cpu_count()} cores)".strip(),
+        "seed": settings["run"]["seed"],
+        "input_sha256": settings_hash(settings),
+        "beads": int(sim.system.n_beads),
+        "final_step": int(sim.step_count),
+        "steps_this_session": int(steps),
+        "wall_seconds": round(wall, 3),
+        "bead_steps_per_second": round(steps * sim.system.n_beads / wall, 1) if wall > 0 else None,
+        "verlet_list_rebuilds": int(sim.rebuilds),
+        "columns": COLUMNS,
+    }
