@@ -165,7 +165,8 @@ def analyze_file(traj_path, top_path=None, out_dir="analysis_output", frames=Non
 
         mean_bond = _bonds(x[t0:], chains, t0, quantities, fits, skipped, out, unit, figure_format)
     else:
-        mean_bond = float(np.median(np.linalg.norm(np.diff(x[0, chains[0]], axis=0), axis=1)))
+        pairs = np.array([(a.index, b.index) for a, b in traj.topology.bonds])
+        mean_bond = float(np.mean(np.linalg.norm(x[t0:, pairs[:, 1]] - x[t0:, pairs[:, 0]], axis=-1)))
 
     pd.DataFrame(series).to_csv(out("series.csv"), index=False)
     plots.time_series(times, np.sqrt(rg2_frame), out(f"rg_series.{figure_format}"), t0,
