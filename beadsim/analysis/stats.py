@@ -22,7 +22,10 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from pymbar import timeseries
+# pymbar logs an installation banner (no JAX) and a general caution at import; both are noise
+# for beadsim users (the caution is covered by reporting n_independent with every error).
+logging.getLogger("pymbar").setLevel(logging.ERROR)
+from pymbar import timeseries  # noqa: E402
 from pymbar.utils import ParameterError
 from scipy.stats import chi2
 
