@@ -3,7 +3,7 @@
 import numpy as np
 
 from .._validate import positive, positive_int
-from ..errors import InputError
+from ..errors import InputError, MinimizationError
 from ..kernels.forces import total_forces
 from ..model.potentials import ForceField
 from ..model.system import System
@@ -65,10 +65,20 @@ class Simulation:
         return self.step_count * self.integrator.timestep
 
     def compute_forces(self):
-        """Recompute forces and energies at the current positions (list kept as is)."""
-        total_forces(self.system.positions, self.box_lengths, self.system.box.periodic, self.system.types,
-                     self.neighbors.start, self.neighbors.nbr, self.compiled.arrays, self.forces,
-                     self.raw_energies, self.info)
+        """Recompute forces and energies at the current positions (list kept as is).
+
+        Raises
+        ------
+        MinimizationError
+            If two interacting beads sit at exactly the same position: the force
+            between them has no direction, so no minimiser can separate them.
+        """
+        try:
+            total_forces(self.system.positions, self.box_lengths, self.system.box.periodic, self.system.types,
+                         self.neighbors.start, self.neighbors.nbr, self.compiled.arrays, self.forces,
+                         self.raw_energies, self.info)
+        except ZeroDivisionError:  # the compiled kernel divides by r^2 (or r) of a pair or bond
+            raise MinimizationError(_coincident_message(self.system)) from None
 
     def refresh_neighbors(self):
         """Rebuild the Verlet list and forces at the current positions."""
@@ -145,3 +155,20 @@ class Simulation:
         ref = np.ascontiguousarray(arrays["list_reference"], dtype=np.float64)
         self.neighbors.build(ref, self.box_lengths, self.system.box.periodic)
         self.compute_forces()
+
+
+def _coincident_message(system):
+    """Error text naming two beads at the same (wrapped) position, if any are found."""
+    x = system.positions
+    if system.box.periodic:
+        x = x - system.box.lengths * np.floor(x / system.box.lengths)
+    _, group, counts = np.unique(x, axis=0, return_inverse=True, return_counts=True)
+    group = group.ravel()
+    shared = np.flatnonzero(counts[group] > 1)
+    who = "two beads"
+    if shared.size:
+        i, j = np.flatnonzero(group == group[shared[0]])[:2]
+        who = f"beads {i} and {j}"
+    return (f"positions: {who} sit at exactly the same place, so the force between them has no direction "
+            "and minimisation cannot separate them; move one of them, or build the start structure with "
+            "a larger min_distance")
