@@ -54,7 +54,7 @@ COLUMNS = {
     "kinetic_energy": "epsilon",
     "total_energy": "epsilon",
     "kinetic_temperature": "epsilon/k_B",
-    "pressure": "epsilon/sigma^3 (periodic boxes; empty otherwise)",
+    "pressure": "epsilon/sigma^3 (periodic boxes; nan in open boxes)",
     "radius_of_gyration": "sigma (root-mean-square over chains)",
     "end_to_end_distance": "sigma (root-mean-square over chains)",
 }
