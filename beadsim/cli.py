@@ -39,6 +39,16 @@ def _cmd_analyze(args):
     return 0
 
 
+def _cmd_sweep(args):
+    from .studies.sweep import run_study
+
+    out = Path(args.out) if args.out else Path(f"{Path(args.study).stem}_study")
+    summary = run_study(args.study, out, workers=args.workers, progress=not args.quiet)
+    from .studies.report import format_study
+    print(format_study(summary))
+    return 0 if not summary["failed"] else EXIT_INPUT
+
+
 def build_parser():
     """The argument parser of the ``beadsim`` command."""
     parser = argparse.ArgumentParser(prog="beadsim", description="Coarse-grained bead-spring polymer chains: "
@@ -55,6 +65,14 @@ def build_parser():
     group.add_argument("--overwrite", action="store_true", help="replace a run already in the output folder")
     p.add_argument("--quiet", action="store_true", help="no progress bar (batch use)")
     p.set_defaults(func=_cmd_run)
+
+    p = sub.add_parser("sweep", help="run a solvent-quality study over a control parameter and chain lengths, "
+                       "estimate the theta point and the collapse")
+    p.add_argument("study", help="study file (TOML)")
+    p.add_argument("--out", help="study folder (default: <study name>_study); run again to resume")
+    p.add_argument("--workers", type=int, help="worker processes (default: all cores)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.set_defaults(func=_cmd_sweep)
 
     p = sub.add_parser("analyze", help="size, shape, scattering and errors of a trajectory mdtraj can read")
     p.add_argument("trajectory", help="trajectory file")

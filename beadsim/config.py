@@ -30,76 +30,76 @@ else:  # pragma: no cover
 REQUIRED = object()
 
 
-def _choice(*allowed):
+def choice(*allowed):
     return ("one of " + ", ".join(map(str, allowed)), lambda v: v in allowed)
 
 
-_POSITIVE = ("a number > 0", lambda v: v > 0)
-_NON_NEGATIVE = ("a number >= 0", lambda v: v >= 0)
-_AT_LEAST_ONE = ("an integer >= 1", lambda v: v >= 1)
+POSITIVE = ("a number > 0", lambda v: v > 0)
+NON_NEGATIVE = ("a number >= 0", lambda v: v >= 0)
+AT_LEAST_ONE = ("an integer >= 1", lambda v: v >= 1)
 _ANY = ("any value", lambda v: True)
 
 SCHEMA = {
     "chains": {
-        "count": (int, 1, _AT_LEAST_ONE, "number of chains"),
+        "count": (int, 1, AT_LEAST_ONE, "number of chains"),
         "length": ((int, list), REQUIRED, ("an integer >= 2 or a list of them", None),
                    "beads per chain: one number for all chains, or one per chain"),
     },
     "box": {
-        "kind": (str, "open", _choice("open", "periodic"), "open: isolated chain(s), no images; periodic: cubic box"),
-        "density": (float, 0.85, _POSITIVE, "bead number density of a periodic box, sigma^-3"),
-        "min_distance": (float, 0.8, _POSITIVE, "closest two beads may be in the grown start structure, sigma"),
+        "kind": (str, "open", choice("open", "periodic"), "open: isolated chain(s), no images; periodic: cubic box"),
+        "density": (float, 0.85, POSITIVE, "bead number density of a periodic box, sigma^-3"),
+        "min_distance": (float, 0.8, POSITIVE, "closest two beads may be in the grown start structure, sigma"),
     },
     "bonds": {
-        "potential": (str, "fene", _choice(*BOND_POTENTIALS), "bond potential"),
-        "stiffness": (float, None, _POSITIVE, "spring constant, epsilon/sigma^2 (fene: 30, harmonic: 100)"),
-        "max_extension": (float, 1.5, _POSITIVE, "FENE R0, sigma"),
-        "rest_length": (float, 1.0, _NON_NEGATIVE, "harmonic rest length, sigma"),
+        "potential": (str, "fene", choice(*BOND_POTENTIALS), "bond potential"),
+        "stiffness": (float, None, POSITIVE, "spring constant, epsilon/sigma^2 (fene: 30, harmonic: 100)"),
+        "max_extension": (float, 1.5, POSITIVE, "FENE R0, sigma"),
+        "rest_length": (float, 1.0, NON_NEGATIVE, "harmonic rest length, sigma"),
         "table": (str, None, _ANY, "table file (r U [F]) for potential = 'table', relative to the input file"),
-        "bond_length": (float, 0.97, _POSITIVE, "bond length of the grown start structure, sigma"),
+        "bond_length": (float, 0.97, POSITIVE, "bond length of the grown start structure, sigma"),
     },
     "nonbonded": {
-        "potential": (str, "wca", _choice(*PAIR_POTENTIALS), "non-bonded pair potential"),
-        "epsilon": (float, 1.0, _NON_NEGATIVE, "energy scale (LJ well depth, WCA/cosine-squared core), epsilon"),
-        "sigma": (float, 1.0, _POSITIVE, "bead diameter, sigma"),
-        "cutoff": (float, 2.5, _POSITIVE, "lennard_jones cutoff, sigma"),
+        "potential": (str, "wca", choice(*PAIR_POTENTIALS), "non-bonded pair potential"),
+        "epsilon": (float, 1.0, NON_NEGATIVE, "energy scale (LJ well depth, WCA/cosine-squared core), epsilon"),
+        "sigma": (float, 1.0, POSITIVE, "bead diameter, sigma"),
+        "cutoff": (float, 2.5, POSITIVE, "lennard_jones cutoff, sigma"),
         "shift": (bool, True, _ANY, "lennard_jones: shift the energy to zero at the cutoff"),
-        "depth": (float, 1.0, _NON_NEGATIVE, "cosine_squared attraction depth phi, epsilon"),
+        "depth": (float, 1.0, NON_NEGATIVE, "cosine_squared attraction depth phi, epsilon"),
         "table": (str, None, _ANY, "table file (r U [F]) for potential = 'table', relative to the input file"),
-        "exclude": (str, "none", _choice(*EXCLUSIONS), "bead pairs without non-bonded forces"),
+        "exclude": (str, "none", choice(*EXCLUSIONS), "bead pairs without non-bonded forces"),
     },
     "bending": {
-        "stiffness": (float, 0.0, _NON_NEGATIVE, "kappa in U = kappa (1 - cos theta), epsilon; 0 = flexible"),
+        "stiffness": (float, 0.0, NON_NEGATIVE, "kappa in U = kappa (1 - cos theta), epsilon; 0 = flexible"),
     },
     "solvent": {
-        "quality": (str, None, _choice("good", "theta", "poor"),
+        "quality": (str, None, choice("good", "theta", "poor"),
                     "preset: good = WCA at the set temperature; theta / poor = lennard_jones 2.5 at the "
                     "model's theta temperature / at 0.6 of it"),
-        "relative_temperature": (float, None, _POSITIVE,
+        "relative_temperature": (float, None, POSITIVE,
                                  "instead of quality: lennard_jones 2.5 at this multiple of its theta temperature"),
     },
     "dynamics": {
-        "integrator": (str, "baoab", _choice(*INTEGRATORS), "integration scheme"),
-        "timestep": (float, 0.005, _POSITIVE, "dt, tau"),
-        "temperature": (float, 1.0, _POSITIVE, "kT, epsilon"),
-        "friction": (float, 0.5, _POSITIVE, "Langevin friction gamma, 1/tau"),
-        "skin": (float, 0.4, _POSITIVE, "Verlet-list skin, sigma"),
+        "integrator": (str, "baoab", choice(*INTEGRATORS), "integration scheme"),
+        "timestep": (float, 0.005, POSITIVE, "dt, tau"),
+        "temperature": (float, 1.0, POSITIVE, "kT, epsilon"),
+        "friction": (float, 0.5, POSITIVE, "Langevin friction gamma, 1/tau"),
+        "skin": (float, 0.4, POSITIVE, "Verlet-list skin, sigma"),
     },
     "run": {
         "seed": (int, REQUIRED, ("an integer >= 0", lambda v: v >= 0), "seed of the start structure and the noise"),
         "minimize": (bool, True, _ANY, "remove overlaps with FIRE before dynamics"),
         "equilibration_steps": (int, 10_000, ("an integer >= 0", lambda v: v >= 0), "steps before frames are saved"),
-        "production_steps": (int, 100_000, _AT_LEAST_ONE, "steps with frames saved"),
+        "production_steps": (int, 100_000, AT_LEAST_ONE, "steps with frames saved"),
     },
     "output": {
         "trajectory": (str, "trajectory.h5", ("a file name ending .h5, .dcd, .xtc or .pdb",
                                               lambda v: Path(v).suffix in (".h5", ".dcd", ".xtc", ".pdb")
                                               and Path(v).name == v),
                        "trajectory file inside the output folder; format from the extension"),
-        "frame_interval": (int, 1000, _AT_LEAST_ONE, "steps between saved frames"),
-        "table_interval": (int, 100, _AT_LEAST_ONE, "steps between rows of the scalar table"),
-        "checkpoint_interval": (int, 10_000, _AT_LEAST_ONE, "steps between checkpoints"),
-        "length_scale_nm": (float, 1.0, _POSITIVE, "sigma in nm for the written trajectory"),
+        "frame_interval": (int, 1000, AT_LEAST_ONE, "steps between saved frames"),
+        "table_interval": (int, 100, AT_LEAST_ONE, "steps between rows of the scalar table"),
+        "checkpoint_interval": (int, 10_000, AT_LEAST_ONE, "steps between checkpoints"),
+        "length_scale_nm": (float, 1.0, POSITIVE, "sigma in nm for the written trajectory"),
     },
 }
 
@@ -132,18 +132,23 @@ def read_settings(path):
         With the file, section, key and what is allowed.
     """
     path = Path(path)
+    return validate(load_toml(path), source=str(path), base=path.parent)
+
+
+def load_toml(path):
+    """Parse a TOML file into a dict; InputError naming the file if it cannot be read or parsed."""
+    path = Path(path)
     try:
-        raw = tomllib.loads(path.read_text(encoding="utf-8"))
+        return tomllib.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:
-        raise InputError(f"{path}: input file not found") from None
+        raise InputError(f"{path}: file not found") from None
     except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"{path}: cannot read the input file ({exc})") from None
+        raise InputError(f"{path}: cannot read the file ({exc})") from None
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"{path}: not valid TOML ({exc})") from None
-    return validate(raw, source=str(path), base=path.parent)
 
 
-def _suggest(word, choices):
+def suggest(word, choices):
     close = difflib.get_close_matches(word, list(choices), n=1, cutoff=0.5)
     return f" (did you mean '{close[0]}'?)" if close else ""
 
@@ -153,22 +158,27 @@ def validate(raw, source="input", base=Path(".")):
     settings = {}
     for section in raw:
         if section not in SCHEMA:
-            raise InputError(f"{source}: unknown section [{section}]{_suggest(section, SCHEMA)}; "
+            raise InputError(f"{source}: unknown section [{section}]{suggest(section, SCHEMA)}; "
                              f"sections are {', '.join(SCHEMA)}")
         if not isinstance(raw[section], dict):
             raise InputError(f"{source}: '{section}' must be a section [{section}], not a single value")
     for section, keys in SCHEMA.items():
-        given = raw.get(section, {})
-        for key in given:
-            if key not in keys:
-                raise InputError(f"{source}: [{section}] unknown key '{key}'{_suggest(key, keys)}; "
-                                 f"allowed keys: {', '.join(keys)}")
-        settings[section] = {key: _value(source, section, key, spec, given) for key, spec in keys.items()}
+        settings[section] = check_section(source, section, keys, raw.get(section, {}))
     _resolve(settings, source, base)
     return settings
 
 
-def _value(source, section, key, spec, given):
+def check_section(source, section, keys, given):
+    """Validate one section: unknown keys are refused with the closest valid one suggested."""
+    for key in given:
+        if key not in keys:
+            raise InputError(f"{source}: [{section}] unknown key '{key}'{suggest(key, keys)}; "
+                             f"allowed keys: {', '.join(keys)}")
+    return {key: check_value(source, section, key, spec, given) for key, spec in keys.items()}
+
+
+def check_value(source, section, key, spec, given):
+    """Validate ``given[key]`` against one schema entry; return the value or its default."""
     kind, default, (rule_text, rule), _ = spec
     where = f"{source}: [{section}] {key}"
     if key not in given:

@@ -156,8 +156,11 @@ class _Recorder:
         self.trajectory.close()
 
 
-def prepare_folder(out, settings, resume, overwrite):
+def prepare_folder(out, settings, resume, overwrite, allow_longer=False):
     """Create or check the output folder; refuse to mix two different runs.
+
+    With ``allow_longer``, a resumed run may ask for more production steps than
+    the run in the folder (sampling extended to reach a target precision).
 
     Raises
     ------
@@ -179,7 +182,9 @@ def prepare_folder(out, settings, resume, overwrite):
         if not resume:
             raise InputError(f"{out}: folder already holds a run ({INPUT_FILE}); use --resume to continue it, "
                              "--overwrite to replace it, or --out for a new folder")
-        if not same:
+        if not same and allow_longer and _only_longer(existing, settings):
+            existing.write_text(to_toml(settings), encoding="utf-8")
+        elif not same:
             raise InputError(f"{out}: folder holds a run with a different input; --resume needs the same input "
                              "file (or use --overwrite or another --out)")
     if overwrite:
@@ -188,7 +193,17 @@ def prepare_folder(out, settings, resume, overwrite):
     return out
 
 
-def run(settings, out, *, resume=False, overwrite=False, progress=True):
+def _only_longer(existing, settings):
+    """True if the run in ``existing`` differs from ``settings`` only by fewer production steps."""
+    from .config import load_toml
+    old_steps = load_toml(existing).get("run", {}).get("production_steps")
+    if not isinstance(old_steps, int) or old_steps > settings["run"]["production_steps"]:
+        return False
+    shorter = {**settings, "run": {**settings["run"], "production_steps": old_steps}}
+    return existing.read_text(encoding="utf-8") == to_toml(shorter)
+
+
+def run(settings, out, *, resume=False, overwrite=False, progress=True, allow_longer=False):
     """Minimise, equilibrate and sample as the settings say, writing everything into ``out``.
 
     Parameters
@@ -203,13 +218,15 @@ def run(settings, out, *, resume=False, overwrite=False, progress=True):
         Replace a run already in the folder.
     progress : bool
         Show a progress bar with steps per second and ETA.
+    allow_longer : bool
+        Let ``resume`` extend the production phase of the run in the folder.
 
     Returns
     -------
     dict
         The run summary (also written to ``summary.json``).
     """
-    out = prepare_folder(out, settings, resume, overwrite)
+    out = prepare_folder(out, settings, resume, overwrite, allow_longer)
     sim = build_simulation(settings)
     total = settings["run"]["equilibration_steps"] + settings["run"]["production_steps"]
     checkpoint = out / CHECKPOINT_FILE

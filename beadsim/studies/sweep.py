@@ -1,0 +1,393 @@
+"""Solvent-quality studies: plan, run, resume and tabulate a sweep over a control parameter and N.
+
+A study file (TOML) has one section ``[study]`` (keys in :data:`STUDY_SCHEMA`)
+naming a base run input (the model), the control parameter (``temperature`` or
+the ``depth`` of the cosine-squared attraction), its values, the chain lengths,
+the replicas per point and how long to sample. Every (N, value, replica) is a
+*point* run by :func:`beadsim.runner.run` in its own folder; the study store
+(:mod:`beadsim.studies.store`) records each point's status, so running the same
+command again skips finished points, retries failed ones up to a limit and
+resumes interrupted ones from their checkpoints.
+"""
+
+import copy
+import json
+import logging
+import os
+import time
+from pathlib import Path
+
+import numpy as np
+
+from ..config import AT_LEAST_ONE, POSITIVE, REQUIRED, check_section, choice, load_toml, read_settings, suggest
+from ..errors import AnalysisError, InputError
+
+log = logging.getLogger(__name__)
+
+STORE_FILE = "study.sqlite"
+RESULTS_CSV = "results.csv"
+RESULTS_PARQUET = "results.parquet"
+SUMMARY_FILE = "study_summary.json"
+POINTS_DIR = "points"
+
+CONTROLS = ("temperature", "depth")
+
+STUDY_SCHEMA = {
+    "base": (str, REQUIRED, ("a run input file", None), "run input describing the model, relative to the study file"),
+    "control": (str, REQUIRED, choice(*CONTROLS),
+                "temperature (kT, epsilon) or depth (cosine_squared attraction phi, epsilon)"),
+    "values": (list, None, ("a non-empty list of numbers > 0", None), "control values (or give range)"),
+    "range": (dict, None, ("a table {start, stop, count}", None), "evenly spaced control values, ends included"),
+    "chain_lengths": (list, REQUIRED, ("a list of integers >= 2", None), "beads per chain"),
+    "replicas": (int, 1, AT_LEAST_ONE, "independent runs per (N, value)"),
+    "seed": (int, REQUIRED, ("an integer >= 0", lambda v: v >= 0), "study seed; point seeds derive from it"),
+    "production_steps": (int, None, AT_LEAST_ONE, "override the base input's production_steps"),
+    "target_relative_error": (float, None, POSITIVE,
+                              "sample until the standard error of <Rg^2> is this fraction of it (0.01 = 1 %)"),
+    "max_production_steps": (int, None, AT_LEAST_ONE, "cap on production steps when a target is set"),
+    "max_attempts": (int, 3, AT_LEAST_ONE, "attempts per point before it is reported failed"),
+}
+
+
+def read_study(path):
+    """Read and validate a study file; return ``(study, base_settings)``.
+
+    Raises
+    ------
+    InputError
+        Naming the file, the key and what is allowed.
+    """
+    path = Path(path)
+    raw = load_toml(path)
+    src = str(path)
+    for section in raw:
+        if section != "study":
+            raise InputError(f"{src}: unknown section [{section}]{suggest(section, ['study'])}; "
+                             "a study file has one section [study]")
+    study = check_section(src, "study", STUDY_SCHEMA, raw.get("study", {}))
+    study["values"] = _control_values(study, src)
+    lengths = study["chain_lengths"]
+    if not lengths or not all(isinstance(n, int) and not isinstance(n, bool) and n >= 2 for n in lengths):
+        raise InputError(f"{src}: [study] chain_lengths: must be a non-empty list of integers >= 2, got {lengths!r}")
+    study["chain_lengths"] = sorted(set(lengths))
+    base_path = (path.parent / study["base"]).resolve()
+    study["base"] = str(base_path)
+    base = read_settings(base_path)
+    _check_control(base, study["control"], src)
+    if study["target_relative_error"] is not None and study["max_production_steps"] is None:
+        raise InputError(f"{src}: [study] max_production_steps: required with target_relative_error (a cap on "
+                         "how long to sample)")
+    return study, base
+
+
+def _control_values(study, src):
+    values, rng = study["values"], study["range"]
+    if (values is None) == (rng is None):
+        raise InputError(f"{src}: [study] give exactly one of values = [...] or range = {{start, stop, count}}")
+    if rng is not None:
+        unknown = set(rng) - {"start", "stop", "count"}
+        if unknown or not {"start", "stop", "count"} <= set(rng):
+            raise InputError(f"{src}: [study] range: needs exactly start, stop and count, got {sorted(rng)}")
+        if not isinstance(rng["count"], int) or rng["count"] < 1:
+            raise InputError(f"{src}: [study] range count: must be an integer >= 1, got {rng['count']!r}")
+        values = list(np.linspace(float(rng["start"]), float(rng["stop"]), rng["count"]))
+    ok = all(isinstance(v, (int, float)) and not isinstance(v, bool) and np.isfinite(v) and v > 0 for v in values)
+    if not values or not ok:
+        raise InputError(f"{src}: [study] values: the parameter range is empty or holds values that are not "
+                         f"numbers > 0: {values!r}")
+    return sorted({float(v) for v in values})
+
+
+def _check_control(base, control, src):
+    if control == "depth" and base["nonbonded"]["potential"] != "cosine_squared":
+        raise InputError(f"{src}: [study] control: 'depth' is the attraction depth of the cosine_squared potential, "
+                         f"but the base model uses '{base['nonbonded']['potential']}'; use control = 'temperature' "
+                         "or set [nonbonded] potential = 'cosine_squared' in the base input")
+    if control == "temperature" and base["dynamics"]["integrator"] == "verlet":
+        raise InputError(f"{src}: [study] control: 'temperature' needs a thermostatted integrator, but the base "
+                         "input uses 'verlet'; use baoab or brownian")
+
+
+def point_seed(study_seed, n_beads, control, replica):
+    """Seed of one point, derived reproducibly from the study seed and the point (NumPy SeedSequence)."""
+    value_id = int(round(control * 1e6))
+    return int(np.random.SeedSequence([study_seed, n_beads, value_id, replica]).generate_state(1)[0])
+
+
+def point_key(n_beads, control, replica):
+    """Folder and store key of a point; keyed on values, so adding values or lengths keeps old points."""
+    return f"n{n_beads:05d}_v{control:.6g}_r{replica:02d}"
+
+
+def plan(study, out):
+    """All points of a study: dicts with key, n_beads, control, replica, seed, folder."""
+    points = []
+    for n in study["chain_lengths"]:
+        for value in study["values"]:
+            for r in range(study["replicas"]):
+                key = point_key(n, value, r)
+                points.append({"key": key, "n_beads": n, "control": value, "replica": r,
+                               "seed": point_seed(study["seed"], n, value, r),
+                               "folder": str(Path(out) / POINTS_DIR / key)})
+    return points
+
+
+def point_settings(base, study, point):
+    """Run settings of one point: the base model with N, control value and seed set."""
+    s = copy.deepcopy(base)
+    s["chains"].update(count=1, length=[point["n_beads"]])
+    s["run"]["seed"] = point["seed"]
+    s["solvent"] = {key: None for key in s["solvent"]}  # the control value replaces any preset
+    if study["control"] == "temperature":
+        s["dynamics"]["temperature"] = point["control"]
+    else:
+        s["nonbonded"]["depth"] = point["control"]
+    if study["production_steps"] is not None:
+        s["run"]["production_steps"] = study["production_steps"]
+    return s
+
+
+def run_point(task):
+    """Run (or resume) one point and analyse it; executed in a worker process.
+
+    Parameters
+    ----------
+    task : dict
+        ``settings``, ``folder``, ``target`` (relative error or None), ``cap`` (steps or None).
+
+    Returns
+    -------
+    dict
+        Observables of the point (see :func:`analyze_point`) plus ``host``.
+    """
+    import socket
+
+    from ..runner import CHECKPOINT_FILE, run
+
+    settings, folder = task["settings"], Path(task["folder"])
+    resume = (folder / CHECKPOINT_FILE).exists()
+    run(settings, folder, resume=resume, overwrite=not resume, progress=False, allow_longer=True)
+    result = analyze_point(folder, settings)
+    while (task["target"] is not None and settings["run"]["production_steps"] < task["cap"]
+           and not _precise_enough(result, task["target"])):
+        settings = copy.deepcopy(settings)
+        settings["run"]["production_steps"] = min(task["cap"], 2 * settings["run"]["production_steps"])
+        run(settings, folder, resume=True, progress=False, allow_longer=True)
+        result = analyze_point(folder, settings)
+    result["host"] = socket.gethostname()
+    return result
+
+
+def _precise_enough(result, target):
+    err = result["rg2_error"]
+    return err is not None and np.isfinite(err) and err <= target * result["rg2"]
+
+
+def analyze_point(folder, settings):
+    """Means, standard errors and sample counts of one finished point.
+
+    Uses the production part of the scalar table (steps after equilibration),
+    drops a further equilibration period found by Chodera's method, and reports
+    <Rg^2>, <Re^2>, the potential energy, the heat capacity per bead from energy
+    fluctuations C/N = (<E^2> - <E>^2)/(N kT^2), and the effective exponent from
+    internal distances of the saved frames.
+
+    Returns
+    -------
+    dict
+        JSON-serialisable; errors are NaN with a ``note`` where the run was too short.
+    """
+    from ..analysis.stats import summarize
+    from ..io import read_table
+    from ..runner import TABLE_FILE
+
+    folder = Path(folder)
+    table = read_table(folder / TABLE_FILE)
+    prod = table[table["step"] > settings["run"]["equilibration_steps"]]
+    n = settings["chains"]["length"][0]
+    kT = settings["dynamics"]["temperature"]
+    out = {"production_steps": int(settings["run"]["production_steps"]), "note": ""}
+    series = {"rg2": prod["radius_of_gyration"].to_numpy() ** 2,
+              "re2": prod["end_to_end_distance"].to_numpy() ** 2,
+              "potential_energy": prod["potential_energy"].to_numpy() / n}
+    notes = []
+    for name, x in series.items():
+        s = summarize(x)
+        out[name] = float(s.mean)
+        out[f"{name}_error"] = float(s.error) if s.error is not None else float("nan")
+        if name == "rg2":
+            out["n_independent"] = float(s.n_independent) if s.n_independent is not None else float("nan")
+            out["equilibration_cut"] = int(s.equilibration_index)
+            out["n_samples"] = int(s.n_samples)
+        if s.reason:
+            notes.append(f"{name}: {s.reason}")
+    energy = prod["potential_energy"].to_numpy()
+    fluct = summarize((energy - energy.mean()) ** 2, detect=False)
+    out["heat_capacity"] = float(fluct.mean / (n * kT ** 2))
+    out["heat_capacity_error"] = (float(fluct.error / (n * kT ** 2)) if fluct.error is not None else float("nan"))
+    out.update(_internal_exponent(folder, settings))
+    out["note"] = "; ".join(notes)
+    return out
+
+
+def _internal_exponent(folder, settings):
+    """nu from <R^2(s)> of the saved frames over 3 <= s <= N/2 (empty when too few frames)."""
+    import mdtraj
+
+    from ..analysis.internal import internal_distances
+    from ..analysis.scaling import nu_from_internal_distances
+
+    n = settings["chains"]["length"][0]
+    path = folder / settings["output"]["trajectory"]
+    if n < 12 or not path.exists():
+        return {"nu_internal": float("nan"), "nu_internal_error": float("nan")}
+    traj = mdtraj.load(str(path))
+    if traj.n_frames < 2:
+        return {"nu_internal": float("nan"), "nu_internal_error": float("nan")}
+    pos = traj.xyz.astype(np.float64) / settings["output"]["length_scale_nm"]
+    r2 = internal_distances(pos, [np.arange(n)])
+    mean = r2.mean(axis=0)
+    err = r2.std(axis=0, ddof=1) / np.sqrt(traj.n_frames)
+    s = np.arange(mean.size, dtype=float)
+    fit = nu_from_internal_distances(s[1:], mean[1:], err[1:], s_range=(3, n / 2))
+    return {"nu_internal": float(fit.nu), "nu_internal_error": float(fit.nu_error)}
+
+
+def results_frame(store):
+    """Tidy pandas DataFrame of finished points: one row per (N, control, replica)."""
+    import pandas as pd
+
+    rows = []
+    for p in store.points("done"):
+        row = {k: p[k] for k in ("key", "n_beads", "control", "replica", "seed", "folder", "attempts", "host")}
+        row.update(json.loads(p["results"]))
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def study_identity(study, base):
+    """Hash of what makes two studies the same model: the base settings and the control parameter."""
+    from ..config import settings_hash
+    return settings_hash({"base": base, "control": study["control"], "seed": study["seed"]})
+
+
+def run_study(study_path, out=None, *, workers=None, backend="local", progress=True):
+    """Plan, run (or resume) and tabulate a study; return its summary dict.
+
+    Parameters
+    ----------
+    study_path : path-like
+        Study file (TOML).
+    out : path-like, optional
+        Study folder (default: ``<study name>_study`` beside the current directory).
+    workers : int, optional
+        Worker processes of the local backend (default: all cores).
+    backend : str or backend class
+        ``"local"`` (see :data:`beadsim.studies.backends.BACKENDS`).
+    progress : bool
+        Show a study-level progress bar.
+    """
+    from ..model.potentials import lookup
+    from .backends import BACKENDS
+    from .store import StudyStore
+
+    study, base = read_study(study_path)
+    out = Path(out) if out else Path(f"{Path(study_path).stem}_study")
+    try:
+        (out / POINTS_DIR).mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"{out}: cannot create the study folder ({exc.strerror or exc})") from None
+    store = StudyStore(out / STORE_FILE)
+    try:
+        identity = study_identity(study, base)
+        known = store.get_meta("identity")
+        if known is not None and known != identity:
+            raise InputError(f"{out}: the folder holds a study of another model, control or seed; use another "
+                             "folder (values, chain lengths and replicas may be added to an existing study)")
+        store.set_meta("identity", identity)
+        store.set_meta("study", json.dumps(study))
+        store.add_points(plan(study, out))
+        recovered = store.recover()
+        if recovered:
+            log.warning("%d point(s) were left running by a stopped sweep; they resume from their checkpoints",
+                        recovered)
+        pool_class = lookup(BACKENDS, backend, "backend")
+        started = time.perf_counter()
+        _execute(store, study, base, pool_class(workers), progress)
+        summary = finalize(store, study, out)
+        summary["wall_seconds"] = round(time.perf_counter() - started, 1)
+        (out / SUMMARY_FILE).write_text(json.dumps(summary, indent=2, default=_json_default) + "\n")
+        return summary
+    finally:
+        store.close()
+
+
+def _json_default(value):
+    if isinstance(value, (np.floating, np.integer)):
+        return value.item()
+    return str(value)
+
+
+def _execute(store, study, base, pool, progress):
+    """Run every pending or retryable point on ``pool``, recording each outcome once."""
+    from tqdm import tqdm
+
+    def runnable():
+        return [p for p in store.points() if p["status"] == "pending"
+                or (p["status"] == "failed" and p["attempts"] < study["max_attempts"])]
+
+    todo = runnable()
+    counts = store.counts()
+    bar = tqdm(total=sum(counts.values()), initial=counts["done"], unit="point", disable=not progress,
+               desc="beadsim sweep")
+    try:
+        with pool:
+            while todo:
+                running = {}
+                for p in todo:
+                    task = {"settings": point_settings(base, study, p), "folder": p["folder"],
+                            "target": study["target_relative_error"], "cap": study["max_production_steps"]}
+                    store.mark_running(p["key"])
+                    running[pool.submit(run_point, task)] = p["key"]
+                broken = False
+                while running:
+                    for fut in pool.wait_any(list(running)):
+                        key = running.pop(fut)
+                        err = fut.exception()
+                        if err is None:
+                            result = fut.result()
+                            store.mark_done(key, result, host=result.pop("host", None))
+                            bar.update(1)
+                        else:
+                            broken |= isinstance(err, pool.broken_errors)
+                            store.mark_failed(key, f"{type(err).__name__}: {err}")
+                            log.warning("point %s failed: %s", key, err)
+                    c = store.counts()
+                    bar.set_postfix(running=len(running), failed=c["failed"])
+                if broken:
+                    pool.restart()
+                todo = runnable()
+    except KeyboardInterrupt:
+        store.recover()
+        raise
+    finally:
+        bar.close()
+
+
+def finalize(store, study, out):
+    """Write the results table (CSV, Parquet) and the study summary; return the summary dict."""
+    frame = results_frame(store)
+    counts = store.counts()
+    failed = {p["key"]: p["error"] for p in store.points("failed")}
+    summary = {"study": study, "points": counts, "failed": failed, "results_csv": str(Path(out) / RESULTS_CSV)}
+    if frame.empty:
+        summary["note"] = "no point finished"
+        return summary
+    frame = frame.sort_values(["n_beads", "control", "replica"]).reset_index(drop=True)
+    frame.to_csv(Path(out) / RESULTS_CSV, index=False)
+    try:
+        frame.to_parquet(Path(out) / RESULTS_PARQUET, index=False)
+        summary["results_parquet"] = str(Path(out) / RESULTS_PARQUET)
+    except ImportError as exc:  # pyarrow is a dependency; a broken install still leaves the CSV
+        summary["results_parquet"] = f"not written ({exc})"
+    return summary
