@@ -18,6 +18,16 @@ def _vectors(pos, i, j, box):
     return d
 
 
+def _add_central(pot, i, j, d, r2, forces, energies, slot):
+    """Add a central pair force (pair or bond) to ``forces``, its energy to ``energies[slot]`` and its virial."""
+    u, f_r = pot.energy_force(r2)
+    energies[slot] += u.sum()
+    energies[3] += (f_r * r2).sum()
+    fvec = f_r[:, None] * d
+    np.add.at(forces, j, fvec)
+    np.add.at(forces, i, -fvec)
+
+
 def reference_forces(system, forcefield):
     """Forces and energies of ``system`` under ``forcefield``, computed in NumPy.
 
@@ -58,12 +68,7 @@ def reference_forces(system, forcefield):
                     sel = (ti == a) & (tj == b)
                     if isinstance(pot, NoPair) or not sel.any():
                         continue
-                    u, f_r = pot.energy_force(r2[sel])
-                    energies[0] += u.sum()
-                    energies[3] += (f_r * r2[sel]).sum()
-                    fvec = f_r[:, None] * d[sel]
-                    np.add.at(forces, j[sel], fvec)
-                    np.add.at(forces, i[sel], -fvec)
+                    _add_central(pot, i[sel], j[sel], d[sel], r2[sel], forces, energies, 0)
 
     if len(system.bonds):
         n_bt = int(system.bond_types.max()) + 1
@@ -73,12 +78,7 @@ def reference_forces(system, forcefield):
         r2 = np.einsum("ij,ij->i", d, d)
         for t, pot in enumerate(pots):
             sel = system.bond_types == t
-            u, f_r = pot.energy_force(r2[sel])
-            energies[1] += u.sum()
-            energies[3] += (f_r * r2[sel]).sum()
-            fvec = f_r[:, None] * d[sel]
-            np.add.at(forces, j[sel], fvec)
-            np.add.at(forces, i[sel], -fvec)
+            _add_central(pot, i[sel], j[sel], d[sel], r2[sel], forces, energies, 1)
 
     if forcefield.bending is not None and len(system.angles):
         n_at = int(system.angle_types.max()) + 1
