@@ -1,0 +1,263 @@
+"""Figures of a solvent-quality study: size crossing, nu_eff, scaling collapse, Rg(N), coil-globule sigmoids.
+
+Every function takes the results table (see :mod:`beadsim.studies.theta`) and, where
+relevant, estimates, draws one figure with matplotlib's object interface (Agg canvas, no
+display) and writes it. ``path`` ending in ``.png`` or ``.svg`` writes that file; a path
+without a suffix writes both ``path.png`` and ``path.svg``. Lengths are in sigma, controls
+in epsilon/k_B (temperature) or epsilon (attraction depth). Error bars are one standard
+error of the replica mean.
+"""
+
+import logging
+import os
+
+import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+
+from ..errors import InputError
+from .collapse import logistic
+from .theta import (Estimate, size_per_bond, check_table, nu_eff_from_scaling, point_means, tau_from_control,
+                    usable_runs)
+
+logger = logging.getLogger(__name__)
+
+NU_SAW = 0.587597
+"""Self-avoiding walk exponent in 3D, Clisby, Phys. Rev. Lett. 104, 055702 (2010)."""
+
+
+def _control_label(control_kind):
+    return "temperature T [epsilon/k_B]" if control_kind == "temperature" else "attraction depth [epsilon]"
+
+
+def _save(fig, path):
+    """Write ``fig`` as PNG and/or SVG (module notes); return the list of paths written."""
+    path = os.fspath(path)
+    stem, suffix = os.path.splitext(path)
+    if suffix.lower() in (".png", ".svg"):
+        targets = [path]
+    elif suffix == "":
+        targets = [stem + ".png", stem + ".svg"]
+    else:
+        raise InputError(f"path: figure files end in .png or .svg (or give no suffix for both), got {path}")
+    FigureCanvasAgg(fig)
+    fig.tight_layout()
+    for target in targets:
+        fig.savefig(target, dpi=150)
+        logger.info("wrote figure %s", target)
+    return targets
+
+
+def _axes(figsize=(5.2, 3.8)):
+    fig = Figure(figsize=figsize)
+    return fig, fig.add_subplot(1, 1, 1)
+
+
+def _mark_estimate(ax, estimate, label="theta"):
+    """Vertical line at an estimate with a one-standard-error band, if it has a value."""
+    if isinstance(estimate, Estimate) and estimate.value is not None:
+        ax.axvline(estimate.value, color="k", lw=0.8, ls="--", label=f"{label} = {estimate.value:.3g}")
+        if estimate.error:
+            ax.axvspan(estimate.value - estimate.error, estimate.value + estimate.error, color="0.85", zorder=0)
+
+
+def size_crossing_figure(df, control_kind, path, quantity="rg2", estimate=None):
+    """Size per bond versus control for every N; the curves cross at theta.
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+        Results table.
+    control_kind : {"temperature", "depth"}
+    path : str or os.PathLike
+        Output (module notes).
+    quantity : {"rg2", "re2"}
+        ``6N<Rg^2>/(N^2-1) = <Rg^2>/(N-1) * 6N/(N+1)`` or ``<Re^2>/(N-1)`` (sigma^2), both b^2 for ideal chains.
+    estimate : Estimate, optional
+        Theta estimate to mark.
+
+    Returns
+    -------
+    list of str
+        Paths written.
+    """
+    if quantity not in ("rg2", "re2"):
+        raise InputError(f"quantity: expected 'rg2' or 're2', got {quantity!r}")
+    df, _ = usable_runs(check_table(df, control_kind), (quantity, quantity + "_error"))
+    means = point_means(df, quantity)
+    y, err, _ = size_per_bond(means, quantity)
+    fig, ax = _axes()
+    for n in np.unique(means["n_beads"]):
+        sel = means["n_beads"].to_numpy() == n
+        ax.errorbar(means["control"][sel], y[sel], err[sel], marker="o", ms=3, lw=1, capsize=2, label=f"N = {n}")
+    _mark_estimate(ax, estimate)
+    ax.set_xlabel(_control_label(control_kind))
+    ax.set_ylabel("6N<Rg^2>/(N^2-1) [sigma^2]" if quantity == "rg2" else "<Re^2>/(N-1) [sigma^2]")
+    ax.legend(frameon=False, fontsize="small")
+    return _save(fig, path)
+
+
+def nu_eff_figure(df, control_kind, path, estimate=None):
+    """Effective exponent versus control with the theta value 1/2 (and 1/3, 0.588 for reference).
+
+    Shows nu_eff from N-scaling (:func:`beadsim.studies.theta.nu_eff_from_scaling`) and, when the
+    table has it, the replica-averaged ``nu_internal`` of each N.
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+        Results table.
+    control_kind : {"temperature", "depth"}
+    path : str or os.PathLike
+        Output (module notes).
+    estimate : Estimate, optional
+        Theta estimate to mark.
+
+    Returns
+    -------
+    list of str
+    """
+    df = check_table(df, control_kind)
+    table = nu_eff_from_scaling(df, control_kind)
+    fig, ax = _axes()
+    ax.errorbar(table["control"], table["nu"], table["nu_error"], color="k", marker="s", ms=4, lw=1.2, capsize=2,
+                label="from N-scaling of <Rg^2>")
+    if "nu_internal" in df.columns and "nu_internal_error" in df.columns:
+        internal, _ = usable_runs(df, ("nu_internal", "nu_internal_error"))
+        for n, group in internal.groupby("n_beads", sort=True):
+            m = point_means(group, "nu_internal")
+            ax.errorbar(m["control"], m["mean"], m["error"], marker="o", ms=3, lw=0.8, capsize=2, alpha=0.7,
+                        label=f"internal distances, N = {n}")
+    for level, style, text in ((0.5, "-", "1/2 (theta)"), (1 / 3, ":", "1/3 (globule)"),
+                               (NU_SAW, ":", "0.588 (good solvent)")):
+        ax.axhline(level, color="C3" if level == 0.5 else "0.5", lw=0.9, ls=style)
+        ax.annotate(text, (1.0, level), xycoords=("axes fraction", "data"), ha="right", va="bottom", fontsize="x-small")
+    _mark_estimate(ax, estimate)
+    ax.set_xlabel(_control_label(control_kind))
+    ax.set_ylabel("effective exponent nu_eff")
+    ax.legend(frameon=False, fontsize="x-small")
+    return _save(fig, path)
+
+
+def collapse_figure(df, control_kind, theta, path):
+    """Scaling collapse: ``6N<Rg^2>/(N^2-1)`` versus ``tau N^(1/2)`` for the given theta.
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+        Results table.
+    control_kind : {"temperature", "depth"}
+    theta : float or Estimate
+        Theta used for tau (an Estimate without a value is refused).
+    path : str or os.PathLike
+        Output (module notes).
+
+    Returns
+    -------
+    list of str
+    """
+    value = theta.value if isinstance(theta, Estimate) else theta
+    if value is None or not np.isfinite(value) or value <= 0:
+        raise InputError(f"theta: expected a positive number or an Estimate with a value, got {theta!r}")
+    df, _ = usable_runs(check_table(df, control_kind), ("rg2", "rg2_error"))
+    means = point_means(df, "rg2")
+    y, err, _ = size_per_bond(means, "rg2")
+    n = means["n_beads"].to_numpy()
+    x = tau_from_control(means["control"].to_numpy(), value, control_kind) * np.sqrt(n)
+    fig, ax = _axes()
+    for ni in np.unique(n):
+        sel = n == ni
+        order = np.argsort(x[sel])
+        ax.errorbar(x[sel][order], y[sel][order], err[sel][order], marker="o", ms=3, lw=0.8, capsize=2,
+                    label=f"N = {ni}")
+    ax.axvline(0.0, color="k", lw=0.6, ls="--")
+    tau_text = "(T - theta)/T" if control_kind == "temperature" else "(theta - depth)/theta"
+    ax.set_xlabel(f"tau N^(1/2), tau = {tau_text}, theta = {value:.4g}")
+    ax.set_ylabel("6N<Rg^2>/(N^2-1) [sigma^2]")
+    ax.legend(frameon=False, fontsize="small")
+    return _save(fig, path)
+
+
+def size_scaling_figure(df, control_kind, controls, path):
+    """Log-log Rg versus N at chosen control values, with reference slopes 1/3, 1/2 and 0.588.
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+        Results table.
+    control_kind : {"temperature", "depth"}
+    controls : sequence of float
+        Control values to show (each must occur in the table).
+    path : str or os.PathLike
+        Output (module notes).
+
+    Returns
+    -------
+    list of str
+    """
+    df, _ = usable_runs(check_table(df, control_kind), ("rg2", "rg2_error"))
+    means = point_means(df, "rg2")
+    available = np.unique(means["control"].to_numpy())
+    chosen = np.atleast_1d(np.asarray(controls, dtype=np.float64))
+    absent = [c for c in chosen if not np.any(np.isclose(available, c))]
+    if chosen.size == 0 or absent:
+        raise InputError(f"controls: each must be one of the table's control values {available.tolist()}, "
+                         f"missing {absent or 'all (empty list)'}")
+    fig, ax = _axes()
+    for c in chosen:
+        sel = np.isclose(means["control"].to_numpy(), c)
+        n = means["n_beads"].to_numpy()[sel]
+        rg = np.sqrt(means["mean"].to_numpy()[sel])
+        ax.errorbar(n, rg, means["error"].to_numpy()[sel] / (2 * rg), marker="o", ms=4, lw=1, capsize=2,
+                    label=f"control = {c:g}")
+    n_all = np.unique(means["n_beads"].to_numpy()).astype(float)
+    rg_all = np.sqrt(means["mean"].to_numpy())
+    anchor = np.exp(np.mean(np.log(rg_all)))
+    n_mid = np.exp(np.mean(np.log(n_all)))
+    for slope, style in ((1 / 3, ":"), (0.5, "--"), (NU_SAW, "-.")):
+        ax.plot(n_all, anchor * (n_all / n_mid) ** slope, color="0.4", ls=style, lw=0.9, label=f"slope {slope:.3g}")
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    ax.set_xlabel("chain length N [beads]")
+    ax.set_ylabel("Rg = <Rg^2>^(1/2) [sigma]")
+    ax.legend(frameon=False, fontsize="x-small")
+    return _save(fig, path)
+
+
+def sigmoid_figure(df, control_kind, fits, path):
+    """Rg versus control for every N with the fitted logistic curves and midpoints.
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+        Results table.
+    control_kind : {"temperature", "depth"}
+    fits : sequence of Estimate
+        From :func:`beadsim.studies.collapse.transition_sigmoids`; those without a value are skipped.
+    path : str or os.PathLike
+        Output (module notes).
+
+    Returns
+    -------
+    list of str
+    """
+    df, _ = usable_runs(check_table(df, control_kind), ("rg2", "rg2_error"))
+    means = point_means(df, "rg2")
+    by_n = {e.details["n_beads"]: e for e in fits if isinstance(e, Estimate) and e.value is not None}
+    fig, ax = _axes()
+    grid = np.linspace(means["control"].min(), means["control"].max(), 300)
+    for k, n in enumerate(np.unique(means["n_beads"])):
+        sel = means["n_beads"].to_numpy() == n
+        rg = np.sqrt(means["mean"].to_numpy()[sel])
+        ax.errorbar(means["control"][sel], rg, means["error"].to_numpy()[sel] / (2 * rg), color=f"C{k}", marker="o",
+                    ms=3, lw=0, elinewidth=1, capsize=2, label=f"N = {n}")
+        fit = by_n.get(int(n))
+        if fit is not None:
+            d = fit.details
+            ax.plot(grid, logistic(grid, fit.value, d["width"], d["rg_globule"], d["rg_coil"], d["sign"]),
+                    color=f"C{k}", lw=1)
+            ax.axvline(fit.value, color=f"C{k}", lw=0.6, ls=":")
+    ax.set_xlabel(_control_label(control_kind))
+    ax.set_ylabel("Rg = <Rg^2>^(1/2) [sigma]")
+    ax.legend(frameon=False, fontsize="small")
+    return _save(fig, path)
