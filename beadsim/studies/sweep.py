@@ -29,6 +29,7 @@ RESULTS_CSV = "results.csv"
 RESULTS_PARQUET = "results.parquet"
 SUMMARY_FILE = "study_summary.json"
 POINTS_DIR = "points"
+FIGURES_DIR = "figures"
 
 CONTROLS = ("temperature", "depth")
 
@@ -390,4 +391,65 @@ def finalize(store, study, out):
         summary["results_parquet"] = str(Path(out) / RESULTS_PARQUET)
     except ImportError as exc:  # pyarrow is a dependency; a broken install still leaves the CSV
         summary["results_parquet"] = f"not written ({exc})"
+    summary.update(estimate_everything(frame, study["control"], Path(out) / FIGURES_DIR, seed=study["seed"]))
     return summary
+
+
+#: The estimator whose value is quoted as "the" theta estimate when it has one, in order of preference:
+#: the crossing of size-per-bond curves uses every chain length without a model assumption.
+PRIMARY_ESTIMATORS = ("crossing", "nu_eff", "<Re^2>/<Rg^2>")
+
+
+def estimate_everything(frame, control_kind, figures, seed=0):
+    """Theta estimators side by side, the coil-globule transition, and the study figures.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        Tidy results (:func:`results_frame`).
+    control_kind : {"temperature", "depth"}
+    figures : path-like
+        Folder for the PNG and SVG figures.
+    seed : int
+        Seed of the bootstrap estimators.
+
+    Returns
+    -------
+    dict
+        ``theta`` (list of estimate dicts), ``theta_combined``, ``collapse`` (lines of text),
+        ``collapse_fits`` (list of estimate dicts) and ``figures``.
+    """
+    from . import collapse, figures as fig
+    from .theta import summarize_theta
+
+    figures = Path(figures)
+    figures.mkdir(parents=True, exist_ok=True)
+    estimates = summarize_theta(frame, control_kind, seed=seed)
+    found = [e for e in estimates if e.value is not None and e.error is not None]
+    out = {"theta": [e.as_dict() for e in estimates], "figures": str(figures), "collapse": [], "collapse_fits": []}
+    primary = next((e for key in PRIMARY_ESTIMATORS for e in found if e.method.startswith(key)), None)
+    if primary is not None:
+        values = [e.value for e in found]
+        out["theta_combined"] = {"value": primary.value, "error": primary.error,
+                                 "how": f"{primary.method}; the {len(found)} estimators with a value span "
+                                        f"{min(values):.3g} to {max(values):.3g}"}
+    crossing = next((e for e in estimates if e.method.startswith("crossing") and "Rg" in e.method), None)
+    nu = next((e for e in estimates if e.method.startswith("nu_eff")), None)
+    fig.size_crossing_figure(frame, control_kind, figures / "size_crossing", estimate=crossing)
+    fig.nu_eff_figure(frame, control_kind, figures / "nu_eff", estimate=nu)
+    if primary is not None:
+        fig.collapse_figure(frame, control_kind, primary.value, figures / "scaling_collapse")
+    measured = np.isfinite(frame["rg2"]) & np.isfinite(frame["rg2_error"])
+    controls = sorted(frame.loc[measured, "control"].unique())
+    if controls:
+        picks = sorted({controls[0], controls[len(controls) // 2], controls[-1]})
+        fig.size_scaling_figure(frame, control_kind, picks, figures / "size_scaling")
+    sigmoids = collapse.transition_sigmoids(frame, control_kind)
+    fig.sigmoid_figure(frame, control_kind, sigmoids, figures / "transition")
+    fits = sigmoids + collapse.heat_capacity_peaks(frame, control_kind) + collapse.globule_scaling(frame, control_kind)
+    for e in fits:
+        text = "-" if e.value is None else (f"{e.value:.4g} +- {e.error:.2g}" if e.error is not None
+                                            else f"{e.value:.4g}")
+        out["collapse"].append(f"{e.method} ({e.fitted_on}): {text}" + (f"  [{'; '.join(e.notes)}]" if e.notes else ""))
+        out["collapse_fits"].append(e.as_dict())
+    return out

@@ -107,3 +107,15 @@ def test_bad_study_files_exit_2(tmp_path, capsys, kwargs, words):
     assert cli.main(["sweep", str(path), "--out", str(tmp_path / "out"), "--quiet"]) == 2
     err = capsys.readouterr().err
     assert words in err and "study.toml" in err and "Traceback" not in err
+
+
+def test_single_chain_length_skips_estimators_that_need_two(tmp_path, capsys):
+    """Fewer than two chain lengths: the N-crossing estimators report why they have no value; the rest runs."""
+    path = _study(tmp_path, lengths="[12]", values="[1.5, 2.5, 3.5]")
+    out = tmp_path / "out"
+    assert cli.main(["sweep", str(path), "--out", str(out), "--workers", "2", "--quiet"]) == 0
+    text = capsys.readouterr().out
+    crossing = next(line for line in text.splitlines() if line.strip().startswith("crossing of 6N"))
+    assert "chain length" in crossing and " - " in crossing
+    assert (out / "figures" / "size_crossing.png").exists()
+    assert (out / "study_summary.json").exists()
