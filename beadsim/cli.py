@@ -43,7 +43,8 @@ def _cmd_sweep(args):
     from .studies.sweep import run_study
 
     out = Path(args.out) if args.out else Path(f"{Path(args.study).stem}_study")
-    summary = run_study(args.study, out, workers=args.workers, progress=not args.quiet)
+    summary = run_study(args.study, out, workers=args.workers, backend="dask" if args.cluster else "local",
+                        cluster=args.cluster, progress=not args.quiet)
     from .studies.report import format_study
     print(format_study(summary))
     return 0 if not summary["failed"] else EXIT_INPUT
@@ -70,7 +71,9 @@ def build_parser():
                        "estimate the theta point and the collapse")
     p.add_argument("study", help="study file (TOML)")
     p.add_argument("--out", help="study folder (default: <study name>_study); run again to resume")
-    p.add_argument("--workers", type=int, help="worker processes (default: all cores)")
+    p.add_argument("--workers", type=int, help="worker processes on this machine (default: all cores)")
+    p.add_argument("--cluster", help="run the points with dask: 'local:N' starts N worker processes on "
+                   "127.0.0.1, 'tcp://HOST:PORT' (or tls://) uses a running scheduler and its workers")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=_cmd_sweep)
 

@@ -4,20 +4,42 @@ Every backend runs ``fn(arg)`` somewhere and returns an object with the
 :class:`concurrent.futures.Future` interface (``done``, ``result``,
 ``exception``, ``cancel``). ``BACKENDS`` maps names to classes; a user's own
 class with the same methods may be passed instead of a name.
+
+The contract of a backend:
+
+1. ``with backend:`` starts (or connects to) the workers and stops them on exit,
+   cancelling tasks not yet finished when the block ends with an exception.
+2. ``submit(fn, arg)`` schedules ``fn(arg)`` and returns a future; ``fn`` must
+   be importable on the workers and safe to run again (a point resumes from
+   its checkpoint).
+3. ``wait_any(futures)`` blocks until at least one future is done and returns
+   the done ones.
+4. ``slots`` is the number of tasks that can run at the same time.
+5. ``broken_errors`` are the exception types after which the backend needs
+   ``restart()`` before it can take new tasks.
 """
 
 import concurrent.futures as cf
 from concurrent.futures.process import BrokenProcessPool
+import importlib.util
+import logging
 import multiprocessing
 import os
+import weakref
 
 from .._validate import positive_int
+from ..errors import InputError
+
+log = logging.getLogger(__name__)
+
+#: Environment of a worker: one numba thread (numba reads NUMBA_NUM_THREADS when it is imported and ignores
+#: the thread variables dask sets) and one BLAS/OpenMP thread.
+ONE_THREAD = {"NUMBA_NUM_THREADS": "1", "OMP_NUM_THREADS": "1"}
 
 
 def _pin_one_thread():
     """Worker initialiser: one numba thread per worker process (set before numba is imported)."""
-    os.environ["NUMBA_NUM_THREADS"] = "1"
-    os.environ["OMP_NUM_THREADS"] = "1"
+    os.environ.update(ONE_THREAD)
 
 
 class LocalPool:
@@ -43,6 +65,11 @@ class LocalPool:
     def __exit__(self, *exc):
         self.shutdown(cancel=exc[0] is not None)
 
+    @property
+    def slots(self):
+        """Tasks running at the same time: one per worker process."""
+        return self.workers
+
     def submit(self, fn, arg):
         """Schedule ``fn(arg)``; return a Future."""
         return self._pool.submit(fn, arg)
@@ -67,4 +94,188 @@ class LocalPool:
     broken_errors = (BrokenProcessPool,)
 
 
-BACKENDS = {"local": LocalPool}
+def _run_one_thread(fn, arg):
+    """Dask task: ``fn(arg)`` with numba on one thread, also on workers started without NUMBA_NUM_THREADS=1."""
+    _pin_one_thread()  # takes effect if numba is not imported yet in this worker
+    import numba
+    numba.set_num_threads(1)  # and this if it is
+    return fn(arg)
+
+
+CLUSTER_FORMS = "'local', 'local:N' (N >= 1 worker processes on this machine) or the address of a running " \
+                "scheduler, 'tcp://HOST:PORT' or 'tls://HOST:PORT'"
+
+
+def parse_cluster(cluster, workers=None):
+    """Check a ``--cluster`` value against ``--workers``; return ``(address, n_local_workers)``.
+
+    Parameters
+    ----------
+    cluster : str
+        ``"local"``, ``"local:N"``, ``"tcp://HOST:PORT"`` or ``"tls://HOST:PORT"``.
+    workers : int, optional
+        Worker count asked for separately; sets N of ``"local"``, must equal N of ``"local:N"``
+        and cannot be combined with a scheduler address (its workers are started with ``dask worker``).
+
+    Returns
+    -------
+    tuple
+        ``(None, n)`` for a local cluster of ``n`` workers, ``(address, None)`` for a scheduler.
+
+    Raises
+    ------
+    InputError
+        Naming the option and the allowed forms.
+    """
+    text = str(cluster).strip()
+    kind, _, rest = text.partition(":")
+    if kind == "local":
+        if rest and not (rest.isdigit() and int(rest) >= 1):
+            raise InputError(f"--cluster: '{cluster}' has no valid worker count; use {CLUSTER_FORMS}")
+        n = int(rest) if rest else None
+        if workers is not None:
+            workers = positive_int(workers, "--workers")
+            if n is not None and n != workers:
+                raise InputError(f"--workers {workers} contradicts --cluster {cluster}; give the worker count once")
+        return None, n or workers or os.cpu_count() or 1
+    host, _, port = rest.removeprefix("//").rpartition(":")
+    if kind not in ("tcp", "tls") or not rest.startswith("//") or not host or not port.isdigit():
+        raise InputError(f"--cluster: '{cluster}' is not understood; use {CLUSTER_FORMS}")
+    if workers is not None:
+        raise InputError(f"--workers applies to this machine's workers, not to the scheduler at {cluster} "
+                         "(start its workers with 'dask worker'); drop --workers")
+    return text, None
+
+
+class DaskCluster:
+    """Dask distributed: a scheduler already running, or a LocalCluster started on 127.0.0.1.
+
+    A worker that dies while running a point is noticed by the scheduler, which
+    runs the point again on another worker (up to the scheduler's
+    ``distributed.scheduler.allowed-failures`` deaths per task, then the future
+    fails with ``KilledWorker`` and the study counts a failed attempt); the point
+    resumes from its own checkpoint. An exception raised by a point is not
+    retried by dask: the study store counts it and retries up to
+    ``max_attempts``.
+
+    Parameters
+    ----------
+    workers : int, optional
+        Worker processes of a local cluster (see :func:`parse_cluster`).
+    cluster : str
+        ``"local"``, ``"local:N"`` or a scheduler address ``"tcp://HOST:PORT"`` / ``"tls://HOST:PORT"``.
+    security : distributed.Security, optional
+        TLS certificates for a ``tls://`` scheduler (default: dask's configuration).
+    """
+
+    name = "dask"
+
+    def __init__(self, workers=None, cluster="local", security=None):
+        self.address, self.workers = parse_cluster(cluster, workers)
+        self.security = security
+        self._cluster = None
+        self._client = None
+        self._futures = weakref.WeakSet()  # submitted and still referenced by the caller
+
+    def __enter__(self):
+        from distributed import Client, LocalCluster
+
+        # distributed sets its loggers to INFO when imported; follow beadsim's level instead (-v shows both)
+        logging.getLogger("distributed").setLevel(logging.INFO if log.isEnabledFor(logging.INFO) else logging.WARNING)
+        if self.address is None:
+            # loopback only and no dashboard: nothing listens on a network other programs can reach
+            self._cluster = LocalCluster(n_workers=self.workers, threads_per_worker=1, processes=True,
+                                         host="127.0.0.1", dashboard_address=None, env=ONE_THREAD)
+            self._client = Client(self._cluster)
+        else:
+            try:
+                self._client = Client(self.address, security=self.security, timeout="20s")
+            except OSError as exc:
+                raise InputError(f"--cluster: cannot reach a dask scheduler at {self.address} ({exc})") from None
+        self._check_workers()
+        return self
+
+    def _check_workers(self):
+        """Raise InputError if a worker cannot import beadsim (points are shipped by reference, not by value)."""
+        specs = self._client.run(importlib.util.find_spec, "beadsim")
+        missing = [worker for worker, spec in specs.items() if spec is None]
+        if missing:
+            self.shutdown(cancel=True)
+            raise InputError(f"--cluster: worker(s) {', '.join(missing)} cannot import beadsim; install the package "
+                             "in the environment the workers run in")
+
+    def __exit__(self, *exc):
+        self.shutdown(cancel=exc[0] is not None)
+
+    @property
+    def scheduler_address(self):
+        """Address of the scheduler in use, e.g. ``tcp://127.0.0.1:40321``."""
+        return self._client.scheduler.address
+
+    @property
+    def slots(self):
+        """Tasks running at the same time: the worker threads the scheduler knows now."""
+        return sum(self._client.nthreads().values())
+
+    def submit(self, fn, arg):
+        """Schedule ``fn(arg)`` with numba on one thread; return a distributed Future.
+
+        ``pure=False`` gives every submission its own key: a point retried after a
+        failure runs again instead of returning the failed result.
+        """
+        future = self._client.submit(_run_one_thread, fn, arg, pure=False)
+        self._futures.add(future)
+        return future
+
+    def shutdown(self, cancel=False):
+        """Disconnect (and stop a local cluster); with ``cancel`` drop this client's unfinished tasks."""
+        if self._client is not None:
+            if cancel:
+                self._client.cancel(list(self._futures))
+            self._client.close()
+            self._client = None
+        if self._cluster is not None:
+            self._cluster.close()
+            self._cluster = None
+
+    def restart(self):
+        """Restart every worker process (not needed after a worker dies: dask replaces it and reruns its task)."""
+        self._client.restart()
+
+    @staticmethod
+    def wait_any(futures):
+        """Block until at least one future is done; return the done ones."""
+        from distributed import wait
+        return wait(futures, return_when="FIRST_COMPLETED").done
+
+    broken_errors = ()
+
+
+BACKENDS = {"local": LocalPool, "dask": DaskCluster}
+
+
+def make_backend(backend="local", *, workers=None, cluster=None):
+    """A backend instance from a name (or class), a worker count and a ``cluster`` for dask.
+
+    Parameters
+    ----------
+    backend : str or class
+        A key of :data:`BACKENDS` or a class with the backend interface.
+    workers : int, optional
+        Worker processes on this machine.
+    cluster : str, optional
+        Only for ``"dask"``: see :func:`parse_cluster`.
+
+    Raises
+    ------
+    InputError
+        For an unknown backend or a ``cluster`` given to a backend without one.
+    """
+    from ..model.potentials import lookup
+
+    cls = lookup(BACKENDS, backend, "backend")
+    if cluster is None:
+        return cls(workers)
+    if not issubclass(cls, DaskCluster):
+        raise InputError(f"cluster: only the 'dask' backend connects to a cluster, not '{backend}'")
+    return cls(workers, cluster=cluster)

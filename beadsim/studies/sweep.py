@@ -272,7 +272,7 @@ def study_identity(study, base):
     return settings_hash({"base": base, "control": study["control"], "seed": study["seed"]})
 
 
-def run_study(study_path, out=None, *, workers=None, backend="local", progress=True):
+def run_study(study_path, out=None, *, workers=None, backend="local", cluster=None, progress=True):
     """Plan, run (or resume) and tabulate a study; return its summary dict.
 
     Parameters
@@ -282,17 +282,20 @@ def run_study(study_path, out=None, *, workers=None, backend="local", progress=T
     out : path-like, optional
         Study folder (default: ``<study name>_study`` beside the current directory).
     workers : int, optional
-        Worker processes of the local backend (default: all cores).
+        Worker processes on this machine (default: all cores).
     backend : str or backend class
-        ``"local"`` (see :data:`beadsim.studies.backends.BACKENDS`).
+        ``"local"`` or ``"dask"`` (see :data:`beadsim.studies.backends.BACKENDS`).
+    cluster : str, optional
+        Dask only: ``"local:N"`` or a scheduler address ``"tcp://HOST:PORT"``
+        (see :func:`beadsim.studies.backends.parse_cluster`).
     progress : bool
         Show a study-level progress bar.
     """
-    from ..model.potentials import lookup
-    from .backends import BACKENDS
+    from .backends import make_backend
     from .store import StudyStore
 
     study, base = read_study(study_path)
+    pool = make_backend(backend, workers=workers, cluster=cluster)  # checks the options before the folder exists
     out = Path(out) if out else Path(f"{Path(study_path).stem}_study")
     try:
         (out / POINTS_DIR).mkdir(parents=True, exist_ok=True)
@@ -312,9 +315,8 @@ def run_study(study_path, out=None, *, workers=None, backend="local", progress=T
         if recovered:
             log.warning("%d point(s) were left running by a stopped sweep; they resume from their checkpoints",
                         recovered)
-        pool_class = lookup(BACKENDS, backend, "backend")
         started = time.perf_counter()
-        _execute(store, study, base, pool_class(workers), progress)
+        _execute(store, study, base, pool, progress)
         summary = finalize(store, study, out)
         summary["wall_seconds"] = round(time.perf_counter() - started, 1)
         (out / SUMMARY_FILE).write_text(json.dumps(summary, indent=2, default=_json_default) + "\n")
@@ -330,8 +332,16 @@ def _json_default(value):
 
 
 def _execute(store, study, base, pool, progress):
-    """Run every pending or retryable point on ``pool``, recording each outcome once."""
+    """Run every pending or retryable point on ``pool``, recording each outcome once.
+
+    The progress bar counts finished points and shows the ETA; its postfix shows
+    points running (at most ``pool.slots``), queued and failed.
+    """
     from tqdm import tqdm
+
+    def show(in_flight):
+        running = min(in_flight, pool.slots)
+        bar.set_postfix(running=running, queued=in_flight - running, failed=store.counts()["failed"])
 
     def runnable():
         return [p for p in store.points() if p["status"] == "pending"
@@ -350,6 +360,7 @@ def _execute(store, study, base, pool, progress):
                             "target": study["target_relative_error"], "cap": study["max_production_steps"]}
                     store.mark_running(p["key"])
                     running[pool.submit(run_point, task)] = p["key"]
+                show(len(running))
                 broken = False
                 while running:
                     for fut in pool.wait_any(list(running)):
@@ -363,8 +374,7 @@ def _execute(store, study, base, pool, progress):
                             broken |= isinstance(err, pool.broken_errors)
                             store.mark_failed(key, f"{type(err).__name__}: {err}")
                             log.warning("point %s failed: %s", key, err)
-                    c = store.counts()
-                    bar.set_postfix(running=len(running), failed=c["failed"])
+                    show(len(running))
                 if broken:
                     pool.restart()
                 todo = runnable()
