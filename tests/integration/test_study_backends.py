@@ -107,7 +107,7 @@ def test_killed_dask_worker_costs_no_point_and_records_none_twice(tmp_path):
 
 
 def test_ctrl_c_leaves_store_consistent_and_rerun_completes(tmp_path, beadsim_command, subprocess_env):
-    path = _study(tmp_path, values="[1.5, 2.0, 2.5, 3.0]", steps=60000)
+    path = _study(tmp_path, values="[1.5, 2.0, 2.5, 3.0]", steps=15000)
     out = tmp_path / "out"
     cmd = [*beadsim_command, "sweep", str(path), "--out", str(out), "--cluster", "local:2", "--quiet"]
     proc = subprocess.Popen(cmd, env=subprocess_env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
