@@ -80,6 +80,11 @@ class StudyStore:
         self._db.execute("UPDATE points SET status = 'running', attempts = attempts + 1, started = ?, "
                          "host = ? WHERE key = ?", (time.time(), socket.gethostname(), key))
 
+    def release(self, key):
+        """Hand a point that was running back as pending, without counting the attempt."""
+        self._db.execute("UPDATE points SET status = 'pending', attempts = MAX(attempts - 1, 0) "
+                         "WHERE key = ? AND status = 'running'", (key,))
+
     def mark_done(self, key, results, host=None):
         """Record a finished point and its results (JSON-serialisable dict), once."""
         self._db.execute("UPDATE points SET status = 'done', finished = ?, results = ?, error = NULL, "

@@ -334,35 +334,34 @@ def _json_default(value):
 def _execute(store, study, base, pool, progress):
     """Run every pending or retryable point on ``pool``, recording each outcome once.
 
-    The progress bar counts finished points and shows the ETA; its postfix shows
-    points running (at most ``pool.slots``), queued and failed.
+    At most ``pool.slots`` points are handed out at a time, so a point is
+    marked running only when a worker can start it, and a worker that dies
+    costs an attempt only to the points that were really running. The
+    progress bar counts finished points and shows the ETA; its postfix shows
+    points running, waiting and failed.
     """
     from tqdm import tqdm
-
-    def show(in_flight):
-        running = min(in_flight, pool.slots)
-        bar.set_postfix(running=running, queued=in_flight - running, failed=store.counts()["failed"])
 
     def runnable():
         return [p for p in store.points() if p["status"] == "pending"
                 or (p["status"] == "failed" and p["attempts"] < study["max_attempts"])]
 
-    todo = runnable()
     counts = store.counts()
     bar = tqdm(total=sum(counts.values()), initial=counts["done"], unit="point", disable=not progress,
                desc="beadsim sweep")
     try:
         with pool:
-            while todo:
-                running = {}
-                for p in todo:
-                    task = {"settings": point_settings(base, study, p), "folder": p["folder"],
-                            "target": study["target_relative_error"], "cap": study["max_production_steps"]}
-                    store.mark_running(p["key"])
-                    running[pool.submit(run_point, task)] = p["key"]
-                show(len(running))
-                broken = False
-                while running:
+            waiting = runnable()
+            while waiting:
+                running, broken = {}, False
+                while waiting or running:
+                    while waiting and len(running) < pool.slots:
+                        p = waiting.pop(0)
+                        task = {"settings": point_settings(base, study, p), "folder": p["folder"],
+                                "target": study["target_relative_error"], "cap": study["max_production_steps"]}
+                        store.mark_running(p["key"])
+                        running[pool.submit(run_point, task)] = p["key"]
+                    bar.set_postfix(running=len(running), waiting=len(waiting), failed=store.counts()["failed"])
                     for fut in pool.wait_any(list(running)):
                         key = running.pop(fut)
                         err = fut.exception()
@@ -374,10 +373,13 @@ def _execute(store, study, base, pool, progress):
                             broken |= isinstance(err, pool.broken_errors)
                             store.mark_failed(key, f"{type(err).__name__}: {err}")
                             log.warning("point %s failed: %s", key, err)
-                    show(len(running))
+                    if broken:
+                        break
                 if broken:
+                    for fut, key in running.items():  # lost with the pool: not an attempt of theirs
+                        store.release(key)
                     pool.restart()
-                todo = runnable()
+                waiting = runnable()
     except KeyboardInterrupt:
         store.recover()
         raise
