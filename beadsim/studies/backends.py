@@ -183,9 +183,11 @@ class DaskCluster:
         # distributed sets its loggers to INFO when imported; follow beadsim's level instead (-v shows both)
         logging.getLogger("distributed").setLevel(logging.INFO if log.isEnabledFor(logging.INFO) else logging.WARNING)
         if self.address is None:
-            # loopback only and no dashboard: nothing listens on a network other programs can reach
+            # loopback only and no dashboard: nothing listens on a network other programs can reach; the
+            # scheduler's small HTTP server (health, metrics) takes a free loopback port instead of 8787
             self._cluster = LocalCluster(n_workers=self.workers, threads_per_worker=1, processes=True,
-                                         host="127.0.0.1", dashboard_address=None, env=ONE_THREAD)
+                                         host="127.0.0.1", dashboard_address=None, env=ONE_THREAD,
+                                         scheduler_kwargs={"dashboard_address": "127.0.0.1:0"})
             self._client = Client(self._cluster)
         else:
             try:
