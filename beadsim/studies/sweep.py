@@ -231,8 +231,20 @@ def analyze_point(folder, settings):
     return out
 
 
+#: Consecutive blocks of frames whose separate fits give the error of nu from internal distances.
+INTERNAL_BLOCKS = 8
+
+
 def _internal_exponent(folder, settings):
-    """nu from <R^2(s)> of the saved frames over 3 <= s <= N/2 (empty when too few frames)."""
+    """nu from <R^2(s)> of the saved frames over 3 <= s <= N/2, with a batch-means error.
+
+    The frames are cut into :data:`INTERNAL_BLOCKS` consecutive blocks and nu is
+    fitted to each block's mean <R^2(s)>; the error is the standard deviation of
+    the block values over sqrt(blocks), which accounts for the correlation of
+    successive frames and of neighbouring separations as long as a block is longer
+    than the chain's relaxation time (batch means; Flyvbjerg and Petersen 1989).
+    NaN when there are too few frames or beads.
+    """
     import mdtraj
 
     from ..analysis.internal import internal_distances
@@ -240,18 +252,22 @@ def _internal_exponent(folder, settings):
 
     n = settings["chains"]["length"][0]
     path = folder / settings["output"]["trajectory"]
+    nothing = {"nu_internal": float("nan"), "nu_internal_error": float("nan")}
     if n < 12 or not path.exists():
-        return {"nu_internal": float("nan"), "nu_internal_error": float("nan")}
+        return nothing
     traj = mdtraj.load(str(path))
-    if traj.n_frames < 2:
-        return {"nu_internal": float("nan"), "nu_internal_error": float("nan")}
+    if traj.n_frames < 2 * INTERNAL_BLOCKS:
+        return nothing
     pos = traj.xyz.astype(np.float64) / settings["output"]["length_scale_nm"]
     r2 = internal_distances(pos, [np.arange(n)])
-    mean = r2.mean(axis=0)
-    err = r2.std(axis=0, ddof=1) / np.sqrt(traj.n_frames)
-    s = np.arange(mean.size, dtype=float)
-    fit = nu_from_internal_distances(s[1:], mean[1:], err[1:], s_range=(3, n / 2))
-    return {"nu_internal": float(fit.nu), "nu_internal_error": float(fit.nu_error)}
+    s = np.arange(r2.shape[1], dtype=float)
+
+    def fit(frames):
+        return nu_from_internal_distances(s[1:], frames.mean(axis=0)[1:], s_range=(3, n / 2)).nu
+
+    blocks = [fit(b) for b in np.array_split(r2, INTERNAL_BLOCKS)]
+    return {"nu_internal": float(fit(r2)),
+            "nu_internal_error": float(np.std(blocks, ddof=1) / np.sqrt(INTERNAL_BLOCKS))}
 
 
 def results_frame(store):
