@@ -50,6 +50,22 @@ def _cmd_sweep(args):
     return 0 if not summary["failed"] else EXIT_INPUT
 
 
+def _cmd_bench(args):
+    import json
+
+    from .bench import format_table, run_benchmarks
+
+    if not args.quiet:
+        print("beadsim: benchmark systems A-F (compiling kernels on first use); this takes minutes", file=sys.stderr)
+    log = (lambda line: None) if args.quiet else (lambda line: print(f"beadsim: {line}", file=sys.stderr))
+    report = run_benchmarks(quick=args.quick, threads=args.threads, log=log)
+    print(format_table(report))
+    if args.json:
+        Path(args.json).write_text(json.dumps(report, indent=2) + "\n", encoding="utf-8")
+        print(f"results in {args.json}")
+    return 0
+
+
 def build_parser():
     """The argument parser of the ``beadsim`` command."""
     parser = argparse.ArgumentParser(prog="beadsim", description="Coarse-grained bead-spring polymer chains: "
@@ -76,6 +92,14 @@ def build_parser():
                    "127.0.0.1, 'tcp://HOST:PORT' (or tls://) uses a running scheduler and its workers")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=_cmd_sweep)
+
+    p = sub.add_parser("bench", help="time the standard systems: bead-steps per second, where the time goes, "
+                       "gain over the NumPy reference")
+    p.add_argument("--json", help="also write the results to this JSON file")
+    p.add_argument("--quick", action="store_true", help="fewer repeats; size series up to 64,000 beads")
+    p.add_argument("--threads", type=int, help="kernel threads (default: all numba was started with)")
+    p.add_argument("--quiet", action="store_true", help="only the table")
+    p.set_defaults(func=_cmd_bench)
 
     p = sub.add_parser("analyze", help="size, shape, scattering and errors of a trajectory mdtraj can read")
     p.add_argument("trajectory", help="trajectory file")

@@ -20,6 +20,7 @@ from ..errors import InstabilityError
 from ..kernels import forces as KF
 from ..kernels.integrate import BAOAB as _BAOAB, BROWNIAN as _BROWNIAN, VERLET as _VERLET, advance
 from ..model.potentials import lookup
+from .threads import threads_for
 
 
 class Integrator:
@@ -65,11 +66,12 @@ class Integrator:
     def _step_impl(self, sim, n_steps, counters):
         coeffs, noise = self._coefficients(sim.system.masses)
         nl = sim.neighbors
-        nl.nbr = advance(self.scheme, n_steps, sim.step_count, np.uint64(sim.noise_seed), self.timestep, coeffs,
-                         sim.system.positions, sim.system.velocities, sim.forces, 1.0 / sim.system.masses,
-                         noise, sim.box_lengths, sim.system.box.periodic, sim.system.types, sim.compiled.arrays,
-                         nl.r_list, nl.skin, nl.excl_start, nl.excl, nl.start, nl.nbr, nl.ref,
-                         sim.raw_energies, sim.info, counters)
+        with threads_for(sim.system.n_beads):
+            nl.nbr = advance(self.scheme, n_steps, sim.step_count, np.uint64(sim.noise_seed), self.timestep,
+                             coeffs, sim.system.positions, sim.system.velocities, sim.forces,
+                             1.0 / sim.system.masses, noise, sim.box_lengths, sim.system.box.periodic,
+                             sim.system.types, sim.compiled.arrays, nl.r_list, nl.skin, nl.excl_start, nl.excl,
+                             nl.start, nl.nbr, nl.ref, sim.raw_energies, sim.info, counters)
 
     def __repr__(self):
         return (f"{type(self).__name__}(timestep={self.timestep!r}, temperature={self.temperature!r}, "

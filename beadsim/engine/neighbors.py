@@ -4,10 +4,11 @@ import numpy as np
 
 from ..errors import InputError
 from ..kernels.integrate import refresh_list
+from .threads import threads_for
 
 
 class NeighborList:
-    """Half Verlet list built from cells, rebuilt when a bead moves more than skin / 2.
+    """Full Verlet list built from cells, rebuilt when a bead moves more than skin / 2.
 
     Parameters
     ----------
@@ -34,17 +35,18 @@ class NeighborList:
         self.excl_start = excl_start
         self.excl = excl
         self.start = np.zeros(n_beads + 1, dtype=np.int64)
-        self.nbr = np.zeros(max(64, 8 * n_beads), dtype=np.int64)  # grows on demand
+        self.nbr = np.zeros(max(64, 16 * n_beads), dtype=np.int32)  # grows on demand
         self.ref = np.zeros((n_beads, 3))
 
     def build(self, positions, box_lengths, periodic):
         """Rebuild the list around ``positions`` (float64 (n, 3), sigma)."""
         if not self.active:
             return
-        self.nbr = refresh_list(positions, box_lengths, periodic, self.r_list, self.excl_start, self.excl,
-                                self.start, self.nbr, self.ref)
+        with threads_for(len(positions)):
+            self.nbr = refresh_list(positions, box_lengths, periodic, self.r_list, self.excl_start, self.excl,
+                                    self.start, self.nbr, self.ref)
 
     @property
     def n_pairs(self):
-        """Number of listed pairs."""
-        return int(self.start[-1])
+        """Number of listed pairs (each is stored under both beads)."""
+        return int(self.start[-1]) // 2

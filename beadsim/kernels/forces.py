@@ -34,9 +34,10 @@ Status codes returned in ``info[0]`` (``info[1]`` holds the offending index):
 import math
 
 import numpy as np
-from numba import njit
+from numba import njit, prange
 
-from .neighbors import minimum_image
+from .chunks import chunk_bounds, chunk_count
+from .neighbors import minimum_image, nearest_image
 
 PAIR_NONE, PAIR_LJ, PAIR_COS2, PAIR_TABLE = 0, 1, 2, 3
 BOND_FENE, BOND_HARMONIC, BOND_TABLE = 0, 1, 2
@@ -102,51 +103,71 @@ def pair_energy_force(kind, p, r2, tables):
     return 0.0, 0.0, True
 
 
-@njit(cache=True)
+@njit(cache=True, parallel=True)
 def pair_forces(pos, box, periodic, types, start, nbr, kinds, params, tables, force, info):
-    """Add non-bonded forces over a half Verlet list; return (energy, virial).
+    """Set ``force`` to the non-bonded forces over a full Verlet list; return (energy, virial, coincident).
 
-    The virial is sum over pairs of r_ij . f_ij (energy units); pressure follows
-    as (2 K + virial) / (3 V).
+    Each bead sums the forces of its own row, so beads are independent and run
+    in parallel; energy and virial are summed per fixed block of beads and the
+    blocks added in order (:mod:`beadsim.kernels.chunks`), so every result is
+    the same on any number of threads. Every pair is met twice, hence the
+    halves. The third value tells whether two interacting beads sit at one
+    point (parallel loops do not raise on that division by zero). The virial
+    is sum over pairs of r_ij . f_ij (energy units);
+    pressure follows as (2 K + virial) / (3 V).
     """
     n = pos.shape[0]
+    inv_box = 1.0 / box
+    n_chunks = chunk_count(n)
+    part = np.zeros((n_chunks, 2))
+    outside = np.full(n_chunks, -1)
+    coincident = np.zeros(n_chunks, dtype=np.bool_)
+    for c in prange(n_chunks):
+        lo, hi = chunk_bounds(n, n_chunks, c)
+        energy = 0.0
+        virial = 0.0
+        for i in range(lo, hi):
+            ti = types[i]
+            xi = pos[i, 0]
+            yi = pos[i, 1]
+            zi = pos[i, 2]
+            fx = 0.0
+            fy = 0.0
+            fz = 0.0
+            for k in range(start[i], start[i + 1]):
+                j = nbr[k]
+                tj = types[j]
+                kind = kinds[ti, tj]
+                if kind == PAIR_NONE:
+                    continue
+                dx = nearest_image(pos[j, 0] - xi, box[0], inv_box[0], periodic)
+                dy = nearest_image(pos[j, 1] - yi, box[1], inv_box[1], periodic)
+                dz = nearest_image(pos[j, 2] - zi, box[2], inv_box[2], periodic)
+                r2 = dx * dx + dy * dy + dz * dz
+                coincident[c] |= r2 == 0.0
+                u, f_r, inside = pair_energy_force(kind, params[ti, tj], r2, tables)
+                if not inside:
+                    outside[c] = i
+                energy += u
+                virial += f_r * r2
+                # d points from i to j: the force on i is -f_r * d
+                fx -= f_r * dx
+                fy -= f_r * dy
+                fz -= f_r * dz
+            force[i, 0] = fx
+            force[i, 1] = fy
+            force[i, 2] = fz
+        part[c, 0] = energy
+        part[c, 1] = virial
     energy = 0.0
     virial = 0.0
-    for i in range(n):
-        ti = types[i]
-        xi = pos[i, 0]
-        yi = pos[i, 1]
-        zi = pos[i, 2]
-        fx = 0.0
-        fy = 0.0
-        fz = 0.0
-        for k in range(start[i], start[i + 1]):
-            j = nbr[k]
-            tj = types[j]
-            kind = kinds[ti, tj]
-            if kind == PAIR_NONE:
-                continue
-            dx = minimum_image(pos[j, 0] - xi, box[0], periodic)
-            dy = minimum_image(pos[j, 1] - yi, box[1], periodic)
-            dz = minimum_image(pos[j, 2] - zi, box[2], periodic)
-            r2 = dx * dx + dy * dy + dz * dz
-            u, f_r, inside = pair_energy_force(kind, params[ti, tj], r2, tables)
-            if not inside:
-                info[0] = OUTSIDE_TABLE
-                info[1] = -1 - i
-            energy += u
-            virial += f_r * r2
-            # force on j is +f_r * d (d points from i to j), on i the opposite
-            fx -= f_r * dx
-            fy -= f_r * dy
-            fz -= f_r * dz
-            force[j, 0] += f_r * dx
-            force[j, 1] += f_r * dy
-            force[j, 2] += f_r * dz
-        force[i, 0] += fx
-        force[i, 1] += fy
-        force[i, 2] += fz
-    return energy, virial
+    for c in range(n_chunks):
+        energy += part[c, 0]
+        virial += part[c, 1]
+        if outside[c] >= 0 and info[0] == OK:
+            info[0] = OUTSIDE_TABLE
+            info[1] = -1 - outside[c]
+    return 0.5 * energy, 0.5 * virial, coincident.any()
 
 
 @njit(cache=True)
@@ -235,7 +256,10 @@ def bending_forces(pos, box, periodic, angles, angle_type, params, force):
 
 @njit(cache=True)
 def total_forces(pos, box, periodic, types, start, nbr, ff, force, energies, info):
-    """Zero ``force`` and fill it with all forces; write energies and status.
+    """Overwrite ``force`` with all forces; write energies and status.
+
+    Raises ZeroDivisionError if two interacting beads sit at one point, as
+    the serial division would.
 
     Parameters
     ----------
@@ -249,10 +273,12 @@ def total_forces(pos, box, periodic, types, start, nbr, ff, force, energies, inf
         Output status code and offending index (see module docstring).
     """
     pair_kinds, pair_params, tables, bonds, bond_type, bond_kinds, bond_params, angles, angle_type, angle_params = ff
-    force[:, :] = 0.0
     info[0] = OK
     info[1] = 0
-    e_pair, w_pair = pair_forces(pos, box, periodic, types, start, nbr, pair_kinds, pair_params, tables, force, info)
+    e_pair, w_pair, coincident = pair_forces(pos, box, periodic, types, start, nbr, pair_kinds, pair_params,
+                                             tables, force, info)
+    if coincident:
+        raise ZeroDivisionError("two interacting beads at the same position")
     e_bond, w_bond = bond_forces(pos, box, periodic, bonds, bond_type, bond_kinds, bond_params, tables, force, info)
     e_bend, w_bend = bending_forces(pos, box, periodic, angles, angle_type, angle_params, force)
     energies[0] = e_pair

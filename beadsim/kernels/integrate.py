@@ -20,10 +20,11 @@ restarted at step ``s`` continues the same sequence.
 """
 
 import numpy as np
-from numba import njit
+from numba import njit, prange
 
 from .forces import OK, total_forces
-from .neighbors import build_half_list, max_displacement_sq
+from .chunks import chunk_bounds, chunk_count
+from .neighbors import build_full_list
 from .random import fill_normal
 
 BAOAB, VERLET, BROWNIAN = 0, 1, 2
@@ -32,12 +33,68 @@ BAOAB, VERLET, BROWNIAN = 0, 1, 2
 @njit(cache=True)
 def refresh_list(pos, box, periodic, r_list, excl_start, excl, start, nbr, ref):
     """Rebuild the Verlet list, growing ``nbr`` if needed; return the (possibly new) ``nbr``."""
-    found = build_half_list(pos, box, periodic, r_list, excl_start, excl, start, nbr)
+    found = build_full_list(pos, box, periodic, r_list, excl_start, excl, start, nbr)
     if found > nbr.shape[0]:
-        nbr = np.empty(int(found * 1.25) + 64, dtype=np.int64)
-        build_half_list(pos, box, periodic, r_list, excl_start, excl, start, nbr)
+        nbr = np.empty(int(found * 1.25) + 64, dtype=np.int32)
+        build_full_list(pos, box, periodic, r_list, excl_start, excl, start, nbr)
     ref[:, :] = pos
     return nbr
+
+
+@njit(cache=True, parallel=True)
+def move_beads(scheme, seed, first_pair, dt, coeffs, pos, vel, force, inv_mass, noise_scale, ref, closing_kick):
+    """Everything of one step before the force call, fused into one parallel pass.
+
+    Applies the closing half kick of the previous step if ``closing_kick``
+    (the same two roundings as two separate kicks), then the scheme's update,
+    drawing each block's Gaussian numbers from the counter-based stream; returns
+    the largest squared displacement since ``ref``.
+    """
+    n = pos.shape[0]
+    half = 0.5 * dt
+    n_chunks = chunk_count(n)
+    part = np.zeros(n_chunks)
+    for c in prange(n_chunks):
+        lo, hi = chunk_bounds(n, n_chunks, c)
+        # normals 3 lo .. 3 hi - 1 come from Box-Muller pairs p0 .. p1 - 1
+        p0 = (3 * lo) // 2
+        p1 = (3 * hi + 1) // 2
+        noise = np.zeros(2 * (p1 - p0))
+        if scheme != VERLET:
+            fill_normal(seed, first_pair + p0, noise)
+        offset = 2 * p0
+        best = 0.0
+        for i in range(lo, hi):
+            d2 = 0.0
+            for d in range(3):
+                g = noise_scale[i] * noise[3 * i + d - offset]
+                if scheme == BROWNIAN:
+                    pos[i, d] += coeffs[0] * dt * inv_mass[i] * force[i, d] + g
+                    vel[i, d] = 0.0
+                else:
+                    if closing_kick:
+                        vel[i, d] += half * inv_mass[i] * force[i, d]
+                    vel[i, d] += half * inv_mass[i] * force[i, d]
+                    if scheme == BAOAB:
+                        pos[i, d] += half * vel[i, d]
+                        vel[i, d] = coeffs[0] * vel[i, d] + g
+                        pos[i, d] += half * vel[i, d]
+                    else:
+                        pos[i, d] += dt * vel[i, d]
+                dd = pos[i, d] - ref[i, d]
+                d2 += dd * dd
+            best = max(best, d2)
+        part[c] = best
+    return part.max()
+
+
+@njit(cache=True, parallel=True)
+def half_kick(dt, vel, force, inv_mass):
+    """Closing half kick v <- v + (dt/2) F/m."""
+    half = 0.5 * dt
+    for i in prange(vel.shape[0]):
+        for d in range(3):
+            vel[i, d] += half * inv_mass[i] * force[i, d]
 
 
 @njit(cache=True)
@@ -45,6 +102,9 @@ def advance(scheme, n_steps, step0, seed, dt, coeffs, pos, vel, force, inv_mass,
             box, periodic, types, ff, r_list, skin, excl_start, excl, start, nbr, ref,
             energies, info, counters):
     """Advance the state by up to ``n_steps`` steps in place.
+
+    Each step is two parallel passes: :func:`move_beads` (with the previous step's
+    closing kick fused in) and the forces; the last closing kick follows the loop.
 
     Parameters
     ----------
@@ -81,48 +141,24 @@ def advance(scheme, n_steps, step0, seed, dt, coeffs, pos, vel, force, inv_mass,
 
     Returns
     -------
-    nbr : int64 array
+    nbr : int32 array
         The neighbour array (a new one if it had to grow).
     """
     n = pos.shape[0]
-    half = 0.5 * dt
-    c1 = coeffs[0]
-    noise = np.empty(3 * n)
     pairs_per_step = (3 * n + 1) // 2
     trigger = 0.25 * skin * skin
+    done = 0
     for s in range(n_steps):
-        step = step0 + s
-        if scheme == BROWNIAN:
-            fill_normal(seed, step * pairs_per_step, noise)
-            mobility = coeffs[0] * dt
-            for i in range(n):
-                for d in range(3):
-                    pos[i, d] += mobility * inv_mass[i] * force[i, d] + noise_scale[i] * noise[3 * i + d]
-                    vel[i, d] = 0.0
-        else:
-            for i in range(n):
-                for d in range(3):
-                    vel[i, d] += half * inv_mass[i] * force[i, d]
-            if scheme == BAOAB:
-                fill_normal(seed, step * pairs_per_step, noise)
-                for i in range(n):
-                    for d in range(3):
-                        pos[i, d] += half * vel[i, d]
-                        vel[i, d] = c1 * vel[i, d] + noise_scale[i] * noise[3 * i + d]
-                        pos[i, d] += half * vel[i, d]
-            else:
-                for i in range(n):
-                    for d in range(3):
-                        pos[i, d] += dt * vel[i, d]
-        if max_displacement_sq(pos, ref) > trigger:
+        moved = move_beads(scheme, seed, (step0 + s) * pairs_per_step, dt, coeffs, pos, vel, force, inv_mass,
+                      noise_scale, ref, s > 0 and scheme != BROWNIAN)
+        if moved > trigger:
             nbr = refresh_list(pos, box, periodic, r_list, excl_start, excl, start, nbr, ref)
             counters[1] += 1
         total_forces(pos, box, periodic, types, start, nbr, ff, force, energies, info)
-        if scheme != BROWNIAN:
-            for i in range(n):
-                for d in range(3):
-                    vel[i, d] += half * inv_mass[i] * force[i, d]
         counters[0] += 1
+        done += 1
         if info[0] != OK:
             break
+    if done > 0 and scheme != BROWNIAN:
+        half_kick(dt, vel, force, inv_mass)
     return nbr

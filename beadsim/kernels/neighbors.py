@@ -1,4 +1,4 @@
-"""Cell-list construction of half Verlet lists, for open and periodic boxes.
+"""Cell-list construction of full Verlet lists, for open and periodic boxes.
 
 Beads are binned into cubic cells at least ``r_list`` wide. In a periodic box the
 cells tile the box and are indexed directly. In an open box the cell coordinates
@@ -7,14 +7,17 @@ VMV 2003): memory stays O(n) however swollen the chain, and a hash collision onl
 adds candidates that the distance test then rejects. Neighbour buckets of a cell
 are de-duplicated so small periodic grids and collisions never double-count.
 
-The list is "half": bead ``j`` is stored under bead ``i`` only for ``j > i``, in
-compressed rows (``start[i]:start[i+1]`` indexes ``nbr``).
+The list is "full": every pair is stored under both of its beads, in compressed
+rows (``start[i]:start[i+1]`` indexes ``nbr``), so that forces can be summed
+bead by bead in parallel without two threads ever writing the same bead.
 """
 
 import math
 
 import numpy as np
-from numba import njit
+from numba import njit, prange
+
+from .chunks import chunk_bounds, chunk_count
 
 _HASH_X = 73856093
 _HASH_Y = 19349663
@@ -22,11 +25,21 @@ _HASH_Z = 83492791
 
 
 @njit(cache=True, inline="always")
+def nearest_image(d, length, inv_length, periodic):
+    """Nearest periodic image of a coordinate difference, given 1/length (identity if not periodic).
+
+    Multiplying by the stored inverse picks the same image as dividing (ties
+    at exactly half a box are farther apart than any list radius).
+    """
+    if periodic:
+        return d - length * np.rint(d * inv_length)
+    return d
+
+
+@njit(cache=True, inline="always")
 def minimum_image(d, length, periodic):
     """Nearest periodic image of a coordinate difference (identity if not periodic)."""
-    if periodic:
-        return d - length * np.rint(d / length)
-    return d
+    return nearest_image(d, length, 1.0 / length, periodic)
 
 
 @njit(cache=True)
@@ -79,8 +92,72 @@ def _is_excluded(i, j, excl_start, excl):
 
 
 @njit(cache=True)
-def build_half_list(pos, box, periodic, r_list, excl_start, excl, start, nbr):
-    """Fill a half Verlet list of all pairs closer than ``r_list``.
+def _bin_beads(pos, box, periodic, r_list):
+    """Counting sort of beads by bucket: cell coordinates, layout, bucket offsets and bead order."""
+    n = pos.shape[0]
+    coords, ncell, n_buckets = _cell_layout(pos, box, periodic, r_list)
+    key = np.empty(n, dtype=np.int64)
+    offsets = np.zeros(n_buckets + 1, dtype=np.int64)
+    for i in range(n):
+        key[i] = _bucket(coords[i, 0], coords[i, 1], coords[i, 2], ncell, periodic, n_buckets)
+        offsets[key[i] + 1] += 1
+    for b in range(n_buckets):
+        offsets[b + 1] += offsets[b]
+    order = np.empty(n, dtype=np.int64)
+    fill = offsets[:-1].copy()
+    for i in range(n):
+        order[fill[key[i]]] = i
+        fill[key[i]] += 1
+    return coords, ncell, n_buckets, offsets, order
+
+
+@njit(cache=True)
+def _scan_row(i, pos, box, inv_box, periodic, r2_list, coords, ncell, n_buckets, offsets, order,
+              excl_start, excl, near, nbr, first):
+    """Neighbours of bead ``i`` within the list radius: count them, and store them from ``nbr[first]``
+    unless ``first`` is negative. Candidates come bucket by bucket in a fixed order."""
+    n_near = 0
+    for ox in range(-1, 2):
+        for oy in range(-1, 2):
+            for oz in range(-1, 2):
+                b = _bucket(coords[i, 0] + ox, coords[i, 1] + oy, coords[i, 2] + oz, ncell, periodic, n_buckets)
+                seen = False
+                for m in range(n_near):
+                    if near[m] == b:
+                        seen = True
+                        break
+                if not seen:
+                    near[n_near] = b
+                    n_near += 1
+    has_excl = excl_start[i + 1] > excl_start[i]
+    xi = pos[i, 0]
+    yi = pos[i, 1]
+    zi = pos[i, 2]
+    found = 0
+    for m in range(n_near):
+        b = near[m]
+        for k in range(offsets[b], offsets[b + 1]):
+            j = order[k]
+            if j == i:
+                continue
+            dx = nearest_image(pos[j, 0] - xi, box[0], inv_box[0], periodic)
+            dy = nearest_image(pos[j, 1] - yi, box[1], inv_box[1], periodic)
+            dz = nearest_image(pos[j, 2] - zi, box[2], inv_box[2], periodic)
+            if dx * dx + dy * dy + dz * dz < r2_list and not (has_excl and _is_excluded(i, j, excl_start, excl)):
+                if first >= 0:
+                    nbr[first + found] = j
+                found += 1
+    return found
+
+
+@njit(cache=True, parallel=True)
+def build_full_list(pos, box, periodic, r_list, excl_start, excl, start, nbr):
+    """Fill a full Verlet list of all pairs closer than ``r_list`` (each pair under both beads).
+
+    Bead ``i``'s partners are ``nbr[start[i]:start[i+1]]``, in an order fixed by
+    the positions alone (never by the thread count), so every bead can sum its
+    own force in parallel and reproducibly. Rows are counted in one parallel
+    pass and filled in a second.
 
     Parameters
     ----------
@@ -95,77 +172,55 @@ def build_half_list(pos, box, periodic, r_list, excl_start, excl, start, nbr):
         Compressed rows of excluded partners of each bead (both directions).
     start : int64 (n+1,)
         Output row offsets.
-    nbr : int64 (capacity,)
+    nbr : int32 (capacity,)
         Output neighbour indices.
 
     Returns
     -------
     int
-        Number of pairs found. If larger than ``len(nbr)`` the list is
-        incomplete and the caller must retry with a larger ``nbr``.
+        Number of entries (twice the number of pairs). If larger than
+        ``len(nbr)``, ``nbr`` was left unfilled and the caller must retry with
+        a larger array.
     """
     n = pos.shape[0]
-    coords, ncell, n_buckets = _cell_layout(pos, box, periodic, r_list)
-    key = np.empty(n, dtype=np.int64)
-    count = np.zeros(n_buckets + 1, dtype=np.int64)
-    for i in range(n):
-        key[i] = _bucket(coords[i, 0], coords[i, 1], coords[i, 2], ncell, periodic, n_buckets)
-        count[key[i] + 1] += 1
-    for b in range(n_buckets):
-        count[b + 1] += count[b]
-    order = np.empty(n, dtype=np.int64)
-    fill = count[:-1].copy()
-    for i in range(n):
-        order[fill[key[i]]] = i
-        fill[key[i]] += 1
-
+    coords, ncell, n_buckets, offsets, order = _bin_beads(pos, box, periodic, r_list)
+    inv_box = 1.0 / box
     r2_list = r_list * r_list
-    capacity = nbr.shape[0]
-    found = 0
-    near = np.empty(27, dtype=np.int64)
+    n_chunks = chunk_count(n)
+    for c in prange(n_chunks):
+        lo, hi = chunk_bounds(n, n_chunks, c)
+        near = np.empty(27, dtype=np.int64)
+        for i in range(lo, hi):
+            start[i + 1] = _scan_row(i, pos, box, inv_box, periodic, r2_list, coords, ncell, n_buckets, offsets,
+                                     order, excl_start, excl, near, nbr, -1)
+    start[0] = 0
     for i in range(n):
-        start[i] = found
-        n_near = 0
-        for ox in range(-1, 2):
-            for oy in range(-1, 2):
-                for oz in range(-1, 2):
-                    b = _bucket(coords[i, 0] + ox, coords[i, 1] + oy, coords[i, 2] + oz,
-                                ncell, periodic, n_buckets)
-                    seen = False
-                    for m in range(n_near):
-                        if near[m] == b:
-                            seen = True
-                            break
-                    if not seen:
-                        near[n_near] = b
-                        n_near += 1
-        for m in range(n_near):
-            b = near[m]
-            for k in range(count[b], count[b + 1]):
-                j = order[k]
-                if j <= i:
-                    continue
-                r2 = 0.0
-                for d in range(3):
-                    dd = minimum_image(pos[j, d] - pos[i, d], box[d], periodic)
-                    r2 += dd * dd
-                if r2 < r2_list and not _is_excluded(i, j, excl_start, excl):
-                    if found < capacity:
-                        nbr[found] = j
-                    found += 1
-    start[n] = found
+        start[i + 1] += start[i]
+    found = start[n]
+    if found <= nbr.shape[0]:
+        for c in prange(n_chunks):
+            lo, hi = chunk_bounds(n, n_chunks, c)
+            near = np.empty(27, dtype=np.int64)
+            for i in range(lo, hi):
+                _scan_row(i, pos, box, inv_box, periodic, r2_list, coords, ncell, n_buckets, offsets, order,
+                          excl_start, excl, near, nbr, start[i])
     return found
 
 
-@njit(cache=True)
+@njit(cache=True, parallel=True)
 def max_displacement_sq(pos, ref):
     """Largest squared displacement of any bead since ``ref`` (float64 (n, 3) each)."""
-    best = 0.0
-    for i in range(pos.shape[0]):
-        d2 = 0.0
-        for d in range(3):
-            dd = pos[i, d] - ref[i, d]
-            d2 += dd * dd
-        if d2 > best:
-            best = d2
-    return best
+    n = pos.shape[0]
+    n_chunks = chunk_count(n)
+    part = np.zeros(n_chunks)
+    for c in prange(n_chunks):
+        lo, hi = chunk_bounds(n, n_chunks, c)
+        best = 0.0
+        for i in range(lo, hi):
+            d2 = 0.0
+            for d in range(3):
+                dd = pos[i, d] - ref[i, d]
+                d2 += dd * dd
+            best = max(best, d2)
+        part[c] = best
+    return part.max()

@@ -1,0 +1,46 @@
+"""How many threads the compiled kernels use.
+
+The force, list and update kernels split their beads into fixed blocks
+(:mod:`beadsim.kernels.chunks`), so results do not depend on the thread count;
+only the speed does.
+"""
+
+from contextlib import contextmanager
+
+import numba
+
+from .._validate import positive_int
+
+#: Systems smaller than this run on one thread: their step is shorter than waking threads costs.
+PARALLEL_MIN_BEADS = 1000
+
+
+def set_threads(threads):
+    """Use ``threads`` threads (at most the ``NUMBA_NUM_THREADS`` numba started with) for the kernels.
+
+    Parameters
+    ----------
+    threads : int
+        Number of threads, >= 1.
+
+    Returns
+    -------
+    int
+        The previous thread count.
+    """
+    threads = positive_int(threads, "threads")
+    previous = numba.get_num_threads()
+    numba.set_num_threads(min(threads, numba.config.NUMBA_NUM_THREADS))
+    return previous
+
+
+@contextmanager
+def threads_for(n_beads):
+    """Run the kernels of an ``n_beads`` system on one thread if it is below ``PARALLEL_MIN_BEADS``."""
+    threads = numba.get_num_threads()
+    if n_beads < PARALLEL_MIN_BEADS:
+        numba.set_num_threads(1)
+    try:
+        yield
+    finally:
+        numba.set_num_threads(threads)
