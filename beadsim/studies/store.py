@@ -91,6 +91,11 @@ class StudyStore:
                          "host = COALESCE(?, host) WHERE key = ? AND status != 'done'",
                          (time.time(), json.dumps(results), host, key))
 
+    def replace_results(self, key, results):
+        """Overwrite the results of a finished point (re-analysis); the status stays ``done``."""
+        self._db.execute("UPDATE points SET results = ? WHERE key = ? AND status = 'done'",
+                         (json.dumps(results), key))
+
     def mark_failed(self, key, message):
         """Record a failed attempt with its error message."""
         self._db.execute("UPDATE points SET status = 'failed', finished = ?, error = ? WHERE key = ?",

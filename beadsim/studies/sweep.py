@@ -288,7 +288,8 @@ def study_identity(study, base):
     return settings_hash({"base": base, "control": study["control"], "seed": study["seed"]})
 
 
-def run_study(study_path, out=None, *, workers=None, backend="local", cluster=None, progress=True):
+def run_study(study_path, out=None, *, workers=None, backend="local", cluster=None, progress=True,
+              reanalyze=False):
     """Plan, run (or resume) and tabulate a study; return its summary dict.
 
     Parameters
@@ -306,6 +307,8 @@ def run_study(study_path, out=None, *, workers=None, backend="local", cluster=No
         (see :func:`beadsim.studies.backends.parse_cluster`).
     progress : bool
         Show a study-level progress bar.
+    reanalyze : bool
+        Analyse every finished point again from its files (after an analysis upgrade).
     """
     from .backends import make_backend
     from .store import StudyStore
@@ -333,6 +336,8 @@ def run_study(study_path, out=None, *, workers=None, backend="local", cluster=No
                         recovered)
         started = time.perf_counter()
         _execute(store, study, base, pool, progress)
+        if reanalyze:
+            _reanalyze(store)
         summary = finalize(store, study, out)
         summary["wall_seconds"] = round(time.perf_counter() - started, 1)
         (out / SUMMARY_FILE).write_text(json.dumps(summary, indent=2, default=_json_default) + "\n")
@@ -345,6 +350,14 @@ def _json_default(value):
     if isinstance(value, (np.floating, np.integer)):
         return value.item()
     return str(value)
+
+
+def _reanalyze(store):
+    """Recompute the results of every finished point from its own resolved input, table and trajectory."""
+    from ..runner import INPUT_FILE
+    for p in store.points("done"):
+        folder = Path(p["folder"])
+        store.replace_results(p["key"], analyze_point(folder, read_settings(folder / INPUT_FILE)))
 
 
 def _execute(store, study, base, pool, progress):
@@ -448,6 +461,7 @@ def estimate_everything(frame, control_kind, figures, seed=0):
         ``collapse_fits`` (list of estimate dicts) and ``figures``.
     """
     from . import collapse, figures as fig
+    from .exponents import size_exponents
     from .theta import summarize_theta
 
     figures = Path(figures)
@@ -474,7 +488,8 @@ def estimate_everything(frame, control_kind, figures, seed=0):
         fig.size_scaling_figure(frame, control_kind, picks, figures / "size_scaling")
     sigmoids = collapse.transition_sigmoids(frame, control_kind)
     fig.sigmoid_figure(frame, control_kind, sigmoids, figures / "transition")
-    fits = sigmoids + collapse.heat_capacity_peaks(frame, control_kind) + collapse.globule_scaling(frame, control_kind)
+    fits = (size_exponents(frame, control_kind) + sigmoids + collapse.heat_capacity_peaks(frame, control_kind)
+            + collapse.globule_scaling(frame, control_kind))
     for e in fits:
         text = "-" if e.value is None else (f"{e.value:.4g} +- {e.error:.2g}" if e.error is not None
                                             else f"{e.value:.4g}")
