@@ -44,7 +44,7 @@ def _cmd_sweep(args):
 
     out = Path(args.out) if args.out else Path(f"{Path(args.study).stem}_study")
     summary = run_study(args.study, out, workers=args.workers, backend="dask" if args.cluster else "local",
-                        cluster=args.cluster, progress=not args.quiet)
+                        cluster=args.cluster, progress=not args.quiet, reanalyze=args.reanalyze)
     from .studies.report import format_study
     print(format_study(summary))
     return 0 if not summary["failed"] else EXIT_INPUT
@@ -91,6 +91,8 @@ def build_parser():
     p.add_argument("--cluster", help="run the points with dask: 'local:N' starts N worker processes on "
                    "127.0.0.1, 'tcp://HOST:PORT' (or tls://) uses a running scheduler and its workers")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--reanalyze", action="store_true",
+                   help="analyse finished points again from their files (after an analysis upgrade)")
     p.set_defaults(func=_cmd_sweep)
 
     p = sub.add_parser("bench", help="time the standard systems: bead-steps per second, where the time goes, "
