@@ -216,8 +216,17 @@ class DaskCluster:
 
     @property
     def slots(self):
-        """Tasks running at the same time: the worker threads the scheduler knows now."""
-        return sum(self._client.nthreads().values())
+        """Tasks running at the same time: the worker threads the scheduler knows now (at least one).
+
+        With no worker connected (a scheduler started before its workers, or every worker
+        restarting) this waits for one, rather than reporting no room to run anything.
+        """
+        threads = self._client.nthreads()
+        if not threads:
+            log.warning("waiting for a dask worker to connect to %s", self.scheduler_address)
+            self._client.wait_for_workers(1)
+            threads = self._client.nthreads()
+        return sum(threads.values())
 
     def submit(self, fn, arg):
         """Schedule ``fn(arg)`` with numba on one thread; return a distributed Future.

@@ -19,6 +19,7 @@ import pytest
 from distributed import Client, LocalCluster
 
 from beadsim import cli
+from beadsim.io import read_checkpoint
 from beadsim.runner import CHECKPOINT_FILE, SUMMARY_FILE
 from beadsim.studies.backends import ONE_THREAD, DaskCluster
 from beadsim.studies.sweep import RESULTS_CSV, STORE_FILE, run_study
@@ -65,14 +66,17 @@ def test_tiny_study_on_local_dask_cluster_matches_local_pool(tmp_path):
 
 
 def _worker_mid_point(client, out, deadline):
-    """Wait until a worker runs a point that has written a checkpoint; return ``(pid, key)`` (None at the deadline).
+    """Wait until a worker runs a point that has checkpointed past step 0; return ``(pid, key)`` (None at the deadline).
 
     The worker is the process holding the point's output files open.
     """
+    def checkpointed(folder):
+        path = folder / CHECKPOINT_FILE
+        return path.exists() and read_checkpoint(path)[0]["step_count"] > 0 and not (folder / SUMMARY_FILE).exists()
+
     while time.time() < deadline:
         time.sleep(0.2)
-        folders = {os.path.realpath(p): p.name for p in (out / "points").glob("*")
-                   if (p / CHECKPOINT_FILE).exists() and not (p / SUMMARY_FILE).exists()}
+        folders = {os.path.realpath(p): p.name for p in (out / "points").glob("*") if checkpointed(p)}
         for pid in client.run(os.getpid).values():
             for f in psutil.Process(pid).open_files():
                 key = folders.get(os.path.dirname(os.path.realpath(f.path)))
