@@ -13,14 +13,13 @@ resumes interrupted ones from their checkpoints.
 import copy
 import json
 import logging
-import os
 import time
 from pathlib import Path
 
 import numpy as np
 
 from ..config import AT_LEAST_ONE, POSITIVE, REQUIRED, check_section, choice, load_toml, read_settings, suggest
-from ..errors import AnalysisError, InputError
+from ..errors import InputError
 
 log = logging.getLogger(__name__)
 

@@ -22,7 +22,7 @@ from beadsim import cli
 from beadsim.io import read_checkpoint
 from beadsim.runner import CHECKPOINT_FILE, SUMMARY_FILE
 from beadsim.studies.backends import ONE_THREAD, DaskCluster
-from beadsim.studies.sweep import RESULTS_CSV, STORE_FILE, run_study
+from beadsim.studies.sweep import RESULTS_CSV, run_study
 from test_sweep import _statuses, _study
 
 #: Every test stops within this many seconds (the kill tests poll against it).
