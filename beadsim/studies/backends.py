@@ -71,8 +71,12 @@ class LocalPool:
         return self.workers
 
     def submit(self, fn, arg):
-        """Schedule ``fn(arg)``; return a Future."""
-        return self._pool.submit(fn, arg)
+        """Schedule ``fn(arg)`` with numba on one thread; return a Future.
+
+        The initialiser's environment variable comes too late when unpickling the task has
+        already imported numba, so the task also pins the thread count itself.
+        """
+        return self._pool.submit(_run_one_thread, fn, arg)
 
     def shutdown(self, cancel=False):
         """Stop the workers; with ``cancel`` drop tasks not yet started."""
