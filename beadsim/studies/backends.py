@@ -38,8 +38,15 @@ ONE_THREAD = {"NUMBA_NUM_THREADS": "1", "OMP_NUM_THREADS": "1"}
 
 
 def _pin_one_thread():
-    """Worker initialiser: one numba thread per worker process (set before numba is imported)."""
-    os.environ.update(ONE_THREAD)
+    """One numba thread in this worker process.
+
+    numba is already imported here (unpickling this function imports beadsim), so the
+    thread count is set through numba itself: changing ``NUMBA_NUM_THREADS`` in the
+    environment after import makes numba refuse to compile later ("cannot set
+    NUMBA_NUM_THREADS to a different value once the threads have been launched").
+    """
+    import numba
+    numba.set_num_threads(1)
 
 
 class LocalPool:
@@ -71,11 +78,7 @@ class LocalPool:
         return self.workers
 
     def submit(self, fn, arg):
-        """Schedule ``fn(arg)`` with numba on one thread; return a Future.
-
-        The initialiser's environment variable comes too late when unpickling the task has
-        already imported numba, so the task also pins the thread count itself.
-        """
+        """Schedule ``fn(arg)`` with numba on one thread; return a Future."""
         return self._pool.submit(_run_one_thread, fn, arg)
 
     def shutdown(self, cancel=False):
@@ -99,10 +102,8 @@ class LocalPool:
 
 
 def _run_one_thread(fn, arg):
-    """Dask task: ``fn(arg)`` with numba on one thread, also on workers started without NUMBA_NUM_THREADS=1."""
-    _pin_one_thread()  # takes effect if numba is not imported yet in this worker
-    import numba
-    numba.set_num_threads(1)  # and this if it is
+    """Task wrapper: ``fn(arg)`` with numba on one thread, also on workers started without NUMBA_NUM_THREADS=1."""
+    _pin_one_thread()
     return fn(arg)
 
 
