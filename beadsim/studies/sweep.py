@@ -17,6 +17,7 @@ import time
 from pathlib import Path
 
 import numpy as np
+import tables
 
 from ..config import AT_LEAST_ONE, POSITIVE, REQUIRED, check_section, choice, load_toml, read_settings, suggest
 from ..errors import InputError
@@ -31,6 +32,9 @@ POINTS_DIR = "points"
 FIGURES_DIR = "figures"
 
 CONTROLS = ("temperature", "depth")
+
+#: Errors from reading back a trajectory that a killed process left half written.
+UNREADABLE_OUTPUT = (tables.exceptions.HDF5ExtError, OSError)
 
 STUDY_SCHEMA = {
     "base": (str, REQUIRED, ("a run input file", None), "run input describing the model, relative to the study file"),
@@ -166,7 +170,16 @@ def run_point(task):
 
     settings, folder = task["settings"], Path(task["folder"])
     resume = (folder / CHECKPOINT_FILE).exists()
-    run(settings, folder, resume=resume, overwrite=not resume, progress=False, allow_longer=True)
+    try:
+        run(settings, folder, resume=resume, overwrite=not resume, progress=False, allow_longer=True)
+    except UNREADABLE_OUTPUT as exc:
+        if not resume:
+            raise
+        # a worker killed while writing can leave an HDF5 file that cannot be opened again; a point is
+        # cheap to redo and deterministic, so start it afresh rather than fail it
+        log.warning("point %s: files left by a stopped run are unreadable (%s); running it again from the start",
+                    folder.name, exc)
+        run(settings, folder, overwrite=True, progress=False)
     result = analyze_point(folder, settings)
     while (task["target"] is not None and settings["run"]["production_steps"] < task["cap"]
            and not _precise_enough(result, task["target"])):
