@@ -171,8 +171,8 @@ def collapse_figure(df, control_kind, theta, path):
         ax.errorbar(x[sel][order], y[sel][order], err[sel][order], marker="o", ms=3, lw=0.8, capsize=2,
                     label=f"N = {ni}")
     ax.axvline(0.0, color="k", lw=0.6, ls="--")
-    tau_text = "(T - theta)/T" if control_kind == "temperature" else "(theta - depth)/theta"
-    ax.set_xlabel(f"tau N^(1/2), tau = {tau_text}, theta = {value:.4g}")
+    tau_definition = "(T - theta)/T" if control_kind == "temperature" else "(theta - depth)/theta"
+    ax.set_xlabel(f"tau N^(1/2), tau = {tau_definition}, theta = {value:.4g}")
     ax.set_ylabel("6N<Rg^2>/(N^2-1) [sigma^2]")
     ax.legend(frameon=False, fontsize="small")
     return _save(fig, path)
