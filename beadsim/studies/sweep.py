@@ -162,7 +162,8 @@ def run_point(task):
     Returns
     -------
     dict
-        Observables of the point (see :func:`analyze_point`) plus ``host``.
+        Observables of the point (see :func:`analyze_point`) plus ``host`` and ``restarted`` (True if
+        files left by a stopped run were unreadable and the point was run again from step 0).
     """
     import socket
 
@@ -170,6 +171,7 @@ def run_point(task):
 
     settings, folder = task["settings"], Path(task["folder"])
     resume = (folder / CHECKPOINT_FILE).exists()
+    restarted = False
     try:
         run(settings, folder, resume=resume, overwrite=not resume, progress=False, allow_longer=True)
     except UNREADABLE_OUTPUT as exc:
@@ -180,6 +182,7 @@ def run_point(task):
         log.warning("point %s: files left by a stopped run are unreadable (%s); running it again from the start",
                     folder.name, exc)
         run(settings, folder, overwrite=True, progress=False)
+        restarted = True
     result = analyze_point(folder, settings)
     while (task["target"] is not None and settings["run"]["production_steps"] < task["cap"]
            and not _precise_enough(result, task["target"])):
@@ -188,6 +191,7 @@ def run_point(task):
         run(settings, folder, resume=True, progress=False, allow_longer=True)
         result = analyze_point(folder, settings)
     result["host"] = socket.gethostname()
+    result["restarted"] = restarted
     return result
 
 
