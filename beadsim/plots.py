@@ -127,6 +127,31 @@ def kratky(q, p, rg, path):
     return _save(fig, path)
 
 
+def structure_factor(q, s, path, unit="nm"):
+    """Total structure factor S(q) of a periodic system, shell-averaged on the reciprocal lattice.
+
+    Parameters
+    ----------
+    q : array_like, shape (n_q,), float64
+        Shell-mean |k|, unit 1/``unit``.
+    s : array_like, shape (n_q,), float64
+        S(q); 1 is drawn for reference (uncorrelated beads).
+    path : str or os.PathLike
+    unit : str
+
+    Returns
+    -------
+    str
+    """
+    fig, ax = _axes()
+    ax.plot(q, s, "o-", ms=3, lw=0.8, label="S(q)")
+    ax.axhline(1.0, color="0.6", lw=0.8, ls="--", label="uncorrelated beads")
+    ax.set_xlabel(f"q [1/{unit}]")
+    ax.set_ylabel("S(q)")
+    ax.legend(frameon=False, fontsize="small")
+    return _save(fig, path)
+
+
 def internal_distances(s, r2, path, unit="nm"):
     """``<R^2(s)> / s`` against s on a logarithmic s axis (flat for ideal chains).
 

@@ -10,8 +10,9 @@ is listed under ``"skipped"`` with the reason instead of failing the whole run.
 
 Output files (in ``out_dir``): ``summary.json``, ``series.csv`` (per-frame chain
 averages), ``internal_distances.csv``, ``form_factor.csv``, ``bonds.csv``,
-``dynamics.csv`` and figures ``rg_series``, ``form_factor``, ``kratky``,
-``internal_distances``, ``bond_lengths`` (``.png`` or ``.svg``).
+``dynamics.csv``, for periodic trajectories ``structure_factor.csv``, and figures
+``rg_series``, ``form_factor``, ``kratky``, ``internal_distances``,
+``bond_lengths`` and ``structure_factor`` (``.png`` or ``.svg``).
 """
 
 import json
@@ -26,12 +27,18 @@ from .. import plots
 from .._validate import positive_int
 from ..errors import AnalysisError, InputError
 from . import bonds, dynamics, internal, scaling, scattering, size, stats
-from .trajectory import find_chains, load_trajectory, trajectory_positions
+from .trajectory import find_chains, is_periodic, load_trajectory, trajectory_positions
 
 logger = logging.getLogger(__name__)
 
 MAX_PAIR_FRAMES = 100
 """Frames (evenly spaced over the equilibrated part) used for the O(N^2) quantities R_h and P(q)."""
+
+MAX_STRUCTURE_FRAMES = 20
+"""Frames (evenly spaced over the equilibrated part) used for S(q) of a periodic system."""
+
+MAX_LATTICE_INDEX = 14
+"""S(q) uses reciprocal lattice vectors 2 pi n / L with |n| up to this (about 5,700 vectors)."""
 
 
 def _finite(value):
@@ -192,6 +199,7 @@ def analyze_file(traj_path, top_path=None, out_dir="analysis_output", frames=Non
         skipped["nu_form_factor"] = f"{exc} (window 3/Rg..1/<b> too narrow for these chains)"
 
     _dynamics(x[t0:], times[t0:], chains, linear, fits, skipped, out, unit)
+    _structure_factor(traj, x, t0, mean_bond, length_scale, skipped, out, unit, figure_format)
 
     summary = {"file": os.fspath(traj_path), "topology": None if top_path is None else os.fspath(top_path),
                "n_frames": n_frames, "n_chains": len(chains), "chain_lengths": sorted({int(c.size) for c in chains}),
@@ -247,6 +255,27 @@ def _dynamics(x, times, chains, linear, fits, skipped, out, unit):
         fits["re_relaxation_time"] = {"integrated": tau.integrated, "e_fold": tau.e_fold,
                                       "converged": tau.converged}
     pd.DataFrame(table).to_csv(out("dynamics.csv"), index=False)
+
+
+def _structure_factor(traj, x, t0, mean_bond, length_scale, skipped, out, unit, figure_format):
+    """Total S(q) of a periodic, orthorhombic trajectory on the reciprocal lattice, up to 10/<b>.
+
+    The range is capped at ``MAX_LATTICE_INDEX`` lattice shells so that large boxes
+    stay cheap; the table says where it stops.
+    """
+    if not is_periodic(traj):
+        skipped["structure_factor"] = "open system (no unit cell): S(q) needs a periodic box"
+        return
+    if not np.allclose(traj.unitcell_angles, 90.0):
+        skipped["structure_factor"] = "box is not orthorhombic"
+        return
+    scale = 1.0 if length_scale is None else length_scale
+    frames = _pick_frames(t0, x.shape[0], MAX_STRUCTURE_FRAMES)
+    box = np.asarray(traj.unitcell_lengths[frames], dtype=np.float64) / scale
+    q_max = min(10.0 / mean_bond, 2.0 * np.pi * MAX_LATTICE_INDEX / float(box.max()))
+    sq = scattering.structure_factor(x[frames], box, q_max)
+    pd.DataFrame({"q": sq.q, "s": sq.s, "n_vectors": sq.n_vectors}).to_csv(out("structure_factor.csv"), index=False)
+    plots.structure_factor(sq.q, sq.s, out(f"structure_factor.{figure_format}"), unit=unit)
 
 
 def _fmt(value):

@@ -4,6 +4,7 @@ import json
 
 import mdtraj
 import numpy as np
+import pandas as pd
 import pytest
 
 from beadsim import plots
@@ -24,9 +25,9 @@ def test_analyze_file_writes_tables_and_figures(run_file, tmp_path):
     out = tmp_path / "out"
     summary = analyze_file(path, out_dir=out)
     for name in ("summary.json", "series.csv", "internal_distances.csv", "form_factor.csv", "bonds.csv",
-                 "dynamics.csv"):
+                 "dynamics.csv", "structure_factor.csv"):
         assert (out / name).stat().st_size > 0
-    for name in ("rg_series", "form_factor", "kratky", "internal_distances", "bond_lengths"):
+    for name in ("rg_series", "form_factor", "kratky", "internal_distances", "bond_lengths", "structure_factor"):
         assert (out / f"{name}.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature
     assert json.loads((out / "summary.json").read_text()) == json.loads(json.dumps(summary))
     # <Rg^2> over the equilibrated frames against mdtraj.compute_rg of the never-wrapped chains
@@ -36,6 +37,28 @@ def test_analyze_file_writes_tables_and_figures(run_file, tmp_path):
     assert summary["quantities"]["rg_squared"]["mean"] == pytest.approx(ref, rel=1e-5)  # float32 storage
     table = format_table(summary)
     assert "rg_squared" in table and "re2_over_rg2" in table and str(path) in table
+
+
+def test_structure_factor_lies_on_the_reciprocal_lattice_of_the_box(run_file, tmp_path):
+    # exact: the first shell (2 pi/L <= |k| < 4 pi/L) of an L-periodic cube holds the lattice vectors
+    # 2 pi n / L with |n| = 1, sqrt 2, sqrt 3: 3 + 6 + 4 of them (one of each +-k pair)
+    _, traj, path = run_file
+    analyze_file(path, out_dir=tmp_path / "out")
+    sq = pd.read_csv(tmp_path / "out" / "structure_factor.csv")
+    box = float(traj.unitcell_lengths[0, 0])
+    mean_n = (3 + 6 * np.sqrt(2) + 4 * np.sqrt(3)) / 13
+    assert sq["q"].iloc[0] == pytest.approx(2 * np.pi / box * mean_n, rel=1e-6)
+    assert sq["n_vectors"].iloc[0] == 13 and np.all(sq["s"] >= 0)
+
+
+def test_open_system_skips_structure_factor_with_reason(run_file, tmp_path):
+    _, traj, _ = run_file
+    open_traj = mdtraj.Trajectory(traj.xyz, traj.topology, time=traj.time)
+    path = tmp_path / "open.h5"
+    open_traj.save_hdf5(str(path))
+    summary = analyze_file(path, out_dir=tmp_path / "out")
+    assert "periodic box" in summary["skipped"]["structure_factor"]
+    assert not (tmp_path / "out" / "structure_factor.csv").exists()
 
 
 def test_svg_figures_and_length_scale(run_file, tmp_path):
