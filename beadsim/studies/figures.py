@@ -261,3 +261,143 @@ def sigmoid_figure(df, control_kind, fits, path):
     ax.set_ylabel("Rg = <Rg^2>^(1/2) [sigma]")
     ax.legend(frameon=False, fontsize="small")
     return _save(fig, path)
+
+
+KRATKY_Q_MAX = 3.0
+"""Largest q drawn in the Kratky figure, 1/sigma: beyond it the curves show single beads, not the chain."""
+
+
+def kratky_figure(curves, control_kind, path, n_beads):
+    """Dimensionless Kratky plots (q Rg)^2 P(q) across the transition, one curve per control value.
+
+    A Gaussian coil levels off at 2 (Debye function, drawn for reference); a swollen coil
+    keeps rising slowly, as q^(2 - 1/nu) in its power-law range; a collapsing chain shows
+    a peak near q Rg ~ 2 followed by a dip, and a compact globule the Porod decay of a
+    sphere, q^2 P ~ q^-2, beyond it.
+
+    Parameters
+    ----------
+    curves : sequence of (float, ndarray, ndarray, float)
+        ``(control, q, p, rg2)`` per control value: q in 1/sigma, shape (n_q,); P(q), shape
+        (n_q,); <Rg^2> of the same point in sigma^2.
+    control_kind : {"temperature", "depth"}
+    path : str or os.PathLike
+        Output (module notes).
+    n_beads : int
+        Chain length of the curves, for the title.
+
+    Returns
+    -------
+    list of str
+    """
+    from matplotlib import colormaps
+
+    from ..analysis.scattering import debye_function
+
+    if not curves:
+        raise InputError("curves: need at least one (control, q, p, rg2) entry")
+    fig, ax = _axes((5.6, 4.0))
+    controls = np.array([c[0] for c in curves], dtype=np.float64)
+    span = np.ptp(controls) or 1.0
+    cmap = colormaps["viridis"]
+    for control, q, p, rg2 in sorted(curves, key=lambda c: c[0]):
+        keep = np.asarray(q) <= KRATKY_Q_MAX
+        x = np.asarray(q)[keep] * np.sqrt(rg2)
+        ax.plot(x, x * x * np.asarray(p)[keep], lw=1.1, color=cmap((control - controls.min()) / span),
+                label=f"{'T' if control_kind == 'temperature' else 'depth'} = {control:g}")
+    x_max = KRATKY_Q_MAX * np.sqrt(max(c[3] for c in curves))
+    grid = np.geomspace(0.2, x_max, 200)
+    ax.plot(grid, grid * grid * debye_function(grid * grid), color="k", ls="--", lw=0.9, label="Debye (Gaussian coil)")
+    ax.set_xscale("log")
+    ax.set_xlabel("q Rg")
+    ax.set_ylabel("(q Rg)$^2$ P(q)")
+    ax.set_title(f"N = {n_beads}", fontsize="small")
+    ax.legend(frameon=False, fontsize="x-small", ncol=2)
+    return _save(fig, path)
+
+
+def snapshots_figure(conformations, labels, path):
+    """One chain conformation per regime, side by side on a common length scale.
+
+    Each chain is centred on its centre of mass and viewed along its smallest
+    principal axis of gyration (largest extent horizontal); beads are coloured from
+    one end to the other.
+
+    Parameters
+    ----------
+    conformations : sequence of ndarray, shape (n_beads, 3), float64
+        Bead positions in sigma, chain order.
+    labels : sequence of str
+        Panel titles, one per conformation.
+    path : str or os.PathLike
+        Output (module notes).
+
+    Returns
+    -------
+    list of str
+    """
+    if not conformations or len(conformations) != len(labels):
+        raise InputError(f"conformations, labels: need the same non-zero number of each, got "
+                         f"{len(conformations)} and {len(labels)}")
+    views = []
+    for x in conformations:
+        x = np.asarray(x, dtype=np.float64)
+        centred = x - x.mean(axis=0)
+        _, vectors = np.linalg.eigh(centred.T @ centred)
+        views.append(centred @ vectors[:, ::-1][:, :2])  # largest, then middle principal axis
+    reach = max(np.abs(v).max() for v in views) * 1.05
+    fig = Figure(figsize=(3.0 * len(views), 3.2))
+    for k, (view, label) in enumerate(zip(views, labels)):
+        ax = fig.add_subplot(1, len(views), k + 1)
+        ax.plot(view[:, 0], view[:, 1], color="0.55", lw=0.6)
+        ax.scatter(view[:, 0], view[:, 1], c=np.arange(len(view)), cmap="viridis", s=8, zorder=2)
+        ax.set_xlim(-reach, reach)
+        ax.set_ylim(-reach, reach)
+        ax.set_aspect("equal")
+        ax.set_title(label, fontsize="small")
+        ax.set_xlabel("sigma")
+    return _save(fig, path)
+
+
+def reweighted_figure(curves, path, rungs=None, peak=None):
+    """MBAR curves of a temperature ladder: <Rg^2>, <Re^2>, potential energy and heat capacity per bead.
+
+    Each panel shows the reweighted average with a one-standard-error band over the sampled
+    range and, with ``rungs``, the direct averages of the rungs as points.
+
+    Parameters
+    ----------
+    curves : beadsim.analysis.reweight.Curves
+        From :func:`beadsim.analysis.reweight.reweighted_curves`.
+    path : str or os.PathLike
+        Output (module notes).
+    rungs : sequence of dict, optional
+        Per rung ``temperature`` and, for each quantity, its mean and ``<quantity>_error``
+        (as in the ``rungs`` of :func:`beadsim.studies.tempering.analyze_ladder`).
+    peak : Estimate, optional
+        Heat-capacity maximum to mark on every panel.
+
+    Returns
+    -------
+    list of str
+    """
+    panels = (("rg2", "<Rg^2> [sigma^2]"), ("re2", "<Re^2> [sigma^2]"),
+              ("potential_energy", "<U>/N [epsilon]"), ("heat_capacity", "C/N [k_B]"))
+    fig = Figure(figsize=(8.4, 6.4))
+    t = curves.temperatures
+    for i, (name, label) in enumerate(panels):
+        ax = fig.add_subplot(2, 2, i + 1)
+        if name in curves.means:
+            mean, err = curves.means[name], curves.errors[name]
+            ax.plot(t, mean, color="C0", lw=1.2, label="MBAR")
+            ax.fill_between(t, mean - err, mean + err, color="C0", alpha=0.25, lw=0)
+        if rungs and name in rungs[0]:
+            ax.errorbar([r["temperature"] for r in rungs], [r[name] for r in rungs],
+                        [r.get(f"{name}_error", np.nan) for r in rungs], color="C1", marker="o", ms=3, lw=0,
+                        elinewidth=1, capsize=2, label="rung averages")
+        _mark_estimate(ax, peak, label="C peak")
+        ax.set_xlabel(_control_label("temperature"))
+        ax.set_ylabel(label)
+        if i == 0:
+            ax.legend(frameon=False, fontsize="x-small")
+    return _save(fig, path)

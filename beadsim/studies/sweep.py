@@ -242,7 +242,7 @@ def analyze_point(folder, settings):
     fluct = summarize((energy - energy.mean()) ** 2, detect=False)
     out["heat_capacity"] = float(fluct.mean / (n * kT ** 2))
     out["heat_capacity_error"] = (float(fluct.error / (n * kT ** 2)) if fluct.error is not None else float("nan"))
-    out.update(_internal_exponent(folder, settings))
+    out.update(_frame_analysis(folder, settings))
     out["note"] = "; ".join(notes)
     return out
 
@@ -250,32 +250,55 @@ def analyze_point(folder, settings):
 #: Consecutive blocks of frames whose separate fits give the error of nu from internal distances.
 INTERNAL_BLOCKS = 8
 
+#: Per-point form factor table (columns q [1/sigma], p), read by the study's Kratky figure.
+POINT_FORM_FACTOR = "form_factor.csv"
 
-def _internal_exponent(folder, settings):
-    """nu from <R^2(s)> of the saved frames over 3 <= s <= N/2, with a batch-means error.
+#: Scattering vectors of the per-point form factor, 1/sigma: from well inside the Guinier range of
+#: the largest coils to beyond the bond scale.
+FORM_FACTOR_Q = np.geomspace(0.02, 8.0, 56)
 
-    The frames are cut into :data:`INTERNAL_BLOCKS` consecutive blocks and nu is
-    fitted to each block's mean <R^2(s)>; the error is the standard deviation of
-    the block values over sqrt(blocks), which accounts for the correlation of
-    successive frames and of neighbouring separations as long as a block is longer
-    than the chain's relaxation time (batch means; Flyvbjerg and Petersen 1989).
-    NaN when there are too few frames or beads.
+#: Saved frames (evenly spaced) used for the per-point form factor.
+FORM_FACTOR_FRAMES = 100
+
+
+def _frame_analysis(folder, settings):
+    """Quantities from the saved frames of one point: nu from internal distances, and P(q).
+
+    nu comes from <R^2(s)> over 3 <= s <= N/2. The frames are cut into
+    :data:`INTERNAL_BLOCKS` consecutive blocks and nu is fitted to each block's mean
+    <R^2(s)>; the error is the standard deviation of the block values over
+    sqrt(blocks), which accounts for the correlation of successive frames and of
+    neighbouring separations as long as a block is longer than the chain's
+    relaxation time (batch means; Flyvbjerg and Petersen 1989). NaN when there
+    are too few frames or beads.
+
+    The single-chain form factor P(q) at :data:`FORM_FACTOR_Q` (exact Debye sum
+    over up to :data:`FORM_FACTOR_FRAMES` frames) is written to
+    :data:`POINT_FORM_FACTOR` in the point folder when there are frames.
     """
     import mdtraj
+    import pandas as pd
 
     from ..analysis.internal import internal_distances
     from ..analysis.scaling import nu_from_internal_distances
+    from ..analysis.scattering import form_factor
 
     n = settings["chains"]["length"][0]
     path = folder / settings["output"]["trajectory"]
-    nothing = {"nu_internal": float("nan"), "nu_internal_error": float("nan")}
-    if n < 12 or not path.exists():
-        return nothing
+    out = {"nu_internal": float("nan"), "nu_internal_error": float("nan")}
+    if not path.exists():
+        return out
     traj = mdtraj.load(str(path))
-    if traj.n_frames < 2 * INTERNAL_BLOCKS:
-        return nothing
+    if traj.n_frames == 0:
+        return out
     pos = traj.xyz.astype(np.float64) / settings["output"]["length_scale_nm"]
-    r2 = internal_distances(pos, [np.arange(n)])
+    chain = [np.arange(n)]
+    picks = np.unique(np.linspace(0, traj.n_frames - 1, min(FORM_FACTOR_FRAMES, traj.n_frames)).astype(int))
+    pd.DataFrame({"q": FORM_FACTOR_Q, "p": form_factor(pos[picks], chain, FORM_FACTOR_Q)}).to_csv(
+        folder / POINT_FORM_FACTOR, index=False)
+    if n < 12 or traj.n_frames < 2 * INTERNAL_BLOCKS:
+        return out
+    r2 = internal_distances(pos, chain)
     s = np.arange(r2.shape[1], dtype=float)
 
     def fit(frames):
@@ -474,7 +497,8 @@ def estimate_everything(frame, control_kind, figures, seed=0):
     -------
     dict
         ``theta`` (list of estimate dicts), ``theta_combined``, ``collapse`` (lines of text),
-        ``collapse_fits`` (list of estimate dicts) and ``figures``.
+        ``collapse_fits`` (list of estimate dicts), ``regime_figures`` (notes on the Kratky
+        and snapshot figures) and ``figures``.
     """
     from . import collapse, figures as fig
     from .exponents import size_exponents
@@ -504,6 +528,7 @@ def estimate_everything(frame, control_kind, figures, seed=0):
         fig.size_scaling_figure(frame, control_kind, picks, figures / "size_scaling")
     sigmoids = collapse.transition_sigmoids(frame, control_kind)
     fig.sigmoid_figure(frame, control_kind, sigmoids, figures / "transition")
+    out["regime_figures"] = _regime_figures(frame, control_kind, figures, primary)
     fits = (size_exponents(frame, control_kind) + sigmoids + collapse.heat_capacity_peaks(frame, control_kind)
             + collapse.globule_scaling(frame, control_kind))
     for e in fits:
@@ -512,3 +537,70 @@ def estimate_everything(frame, control_kind, figures, seed=0):
         out["collapse"].append(f"{e.method} ({e.fitted_on}): {text}" + (f"  [{'; '.join(e.notes)}]" if e.notes else ""))
         out["collapse_fits"].append(e.as_dict())
     return out
+
+
+def _regime_figures(frame, control_kind, figures, theta):
+    """Kratky curves across the transition and chain snapshots per regime, for the longest N.
+
+    Reads each point's :data:`POINT_FORM_FACTOR` and the last saved frame of its
+    trajectory; points whose folders lack them (moved study, older results) are
+    left out. Returns notes saying what was drawn or why not.
+    """
+    import mdtraj
+    import pandas as pd
+
+    from ..runner import INPUT_FILE
+    from . import figures as fig
+
+    n_max = int(frame["n_beads"].max())
+    rows = frame[(frame["n_beads"] == n_max) & np.isfinite(frame["rg2"])]
+    curves, notes = [], []
+    for control, group in rows.groupby("control"):
+        tables = [pd.read_csv(Path(f) / POINT_FORM_FACTOR) for f in group["folder"]
+                  if (Path(f) / POINT_FORM_FACTOR).exists()]
+        if tables:
+            curves.append((float(control), tables[0]["q"].to_numpy(),
+                           np.mean([t["p"].to_numpy() for t in tables], axis=0), float(group["rg2"].mean())))
+    if curves:
+        fig.kratky_figure(curves, control_kind, figures / "kratky", n_max)
+        notes.append(f"kratky: N = {n_max}, {len(curves)} control values")
+    else:
+        notes.append(f"kratky: skipped, no {POINT_FORM_FACTOR} in the N = {n_max} point folders (run --reanalyze)")
+
+    controls = sorted(rows["control"].unique())
+    if not controls:
+        return notes
+    middle = (controls[len(controls) // 2] if theta is None
+              else min(controls, key=lambda c: abs(c - theta.value)))
+    picks = sorted({controls[0], middle, controls[-1]}, reverse=control_kind == "temperature")
+    conformations, labels = [], []
+    for control in picks:
+        for folder in rows.loc[rows["control"] == control, "folder"]:
+            folder = Path(folder)
+            if not (folder / INPUT_FILE).exists():
+                continue
+            settings = read_settings(folder / INPUT_FILE)
+            path = folder / settings["output"]["trajectory"]
+            if path.exists():
+                last = mdtraj.load(str(path))[-1]
+                conformations.append(last.xyz[0].astype(np.float64) / settings["output"]["length_scale_nm"])
+                labels.append(f"{'T' if control_kind == 'temperature' else 'depth'} = {control:g}"
+                              f"{_regime_label(control, theta, control_kind)}")
+                break
+    if conformations:
+        fig.snapshots_figure(conformations, labels, figures / "snapshots")
+        notes.append(f"snapshots: N = {n_max}, last saved frame at {', '.join(labels)}")
+    else:
+        notes.append(f"snapshots: skipped, no readable trajectory in the N = {n_max} point folders")
+    return notes
+
+
+def _regime_label(control, theta, control_kind):
+    """'(good-solvent side)', '(near theta)' or '(poor-solvent side)' relative to an estimate, or ''."""
+    if theta is None or theta.value is None:
+        return ""
+    margin = theta.error if theta.error else 0.0
+    if abs(control - theta.value) <= margin:
+        return " (near theta)"
+    better = (control > theta.value) == (control_kind == "temperature")
+    return " (good-solvent side)" if better else " (poor-solvent side)"

@@ -62,6 +62,12 @@ def test_tiny_study_writes_tidy_results(tmp_path, capsys):
         frame["note"] = frame["note"].fillna("").astype(str)
     pd.testing.assert_frame_equal(parquet, table, check_dtype=False)
     assert "points: 4 done" in capsys.readouterr().out
+    for name in ("kratky", "snapshots", "size_crossing", "transition"):
+        assert (out / "figures" / f"{name}.png").stat().st_size > 0
+    # each point keeps its form factor, normalised so that P(q) -> 1 - (q Rg)^2/3 as q -> 0 (Guinier law)
+    point = table.iloc[-1]
+    ff = pd.read_csv(Path(point["folder"]) / "form_factor.csv")
+    assert ff["p"].iloc[0] == pytest.approx(1 - ff["q"].iloc[0] ** 2 * point["rg2"] / 3, abs=1e-3)
     # a second run finds everything done and re-runs nothing
     before = _statuses(out)
     assert cli.main(["sweep", str(path), "--out", str(out), "--quiet"]) == 0
