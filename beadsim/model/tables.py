@@ -61,17 +61,8 @@ class Table:
     @classmethod
     def from_file(cls, path, n_points=DEFAULT_POINTS):
         """Read a two- or three-column text table (r, U[, F]) from ``path``."""
-        path = Path(path)
-        try:
-            data = np.loadtxt(path, comments="#", ndmin=2)
-        except OSError as exc:
-            raise InputError(f"{path}: cannot read table file ({exc.strerror or exc})") from None
-        except ValueError as exc:
-            raise InputError(f"{path}: not a numeric table of columns r U [F] ({exc})") from None
-        if data.shape[1] not in (2, 3):
-            raise InputError(f"{path}: expected 2 or 3 columns (r U [F]), found {data.shape[1]}")
-        f = data[:, 2] if data.shape[1] == 3 else None
-        return cls(data[:, 0], data[:, 1], f, n_points=n_points, source=str(path))
+        r, u, f = read_columns(path)
+        return cls(r, u, f, n_points=n_points, source=str(path))
 
     @property
     def n_points(self):
@@ -100,3 +91,29 @@ class Table:
         u = (2 * t3 - 3 * t2 + 1) * u0 + (t3 - 2 * t2 + t) * m0 + (-2 * t3 + 3 * t2) * u1 + (t3 - t2) * m1
         du = (6 * t2 - 6 * t) * u0 + (3 * t2 - 4 * t + 1) * m0 + (-6 * t2 + 6 * t) * u1 + (3 * t2 - 2 * t) * m1
         return u, du / self.dr
+
+
+def read_columns(path):
+    """The raw rows of a table file, before any spline.
+
+    Parameters
+    ----------
+    path : path-like
+        Text file with columns ``r U [F]`` (sigma, epsilon, epsilon/sigma).
+
+    Returns
+    -------
+    r, u : float64 (m,)
+    f : float64 (m,) or None
+        The force column, if the file has one.
+    """
+    path = Path(path)
+    try:
+        data = np.loadtxt(path, comments="#", ndmin=2)
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read table file ({exc.strerror or exc})") from None
+    except ValueError as exc:
+        raise InputError(f"{path}: not a numeric table of columns r U [F] ({exc})") from None
+    if data.shape[1] not in (2, 3):
+        raise InputError(f"{path}: expected 2 or 3 columns (r U [F]), found {data.shape[1]}")
+    return data[:, 0], data[:, 1], (data[:, 2] if data.shape[1] == 3 else None)
