@@ -295,7 +295,7 @@ def equilibrated_chain(settings, n_steps):
     from ..runner import build_simulation
 
     s = copy.deepcopy(settings)
-    s["dynamics"]["timestep"] = min(s["dynamics"]["timestep"], EQUILIBRATION_TIMESTEP)
+    s["dynamics"].update(integrator="baoab", timestep=min(s["dynamics"]["timestep"], EQUILIBRATION_TIMESTEP))
     sim = build_simulation(s)
     sim.minimize()
     sim.advance(1000)  # compile and settle before timing
@@ -777,7 +777,8 @@ def check_solvent(ctx, s, result, positions):
         expected = ctx.plan.get("expected_quality")
         status = "note" if expected is None else ("pass" if expected == label else "fail")
         words = {"good": "good solvent", "near_theta": "near theta", "poor": "poor solvent"}
-        message = (f"nu_eff = {nu:.3f} +- {nu_err:.3f} over 3 <= s <= N/2 of a {n}-bead chain: {words[label]} "
+        message = (f"nu_eff = {nu:.3f} +- {nu_err:.3f} over 3 <= s <= N/2 of a {n}-bead chain: {words[label]} at "
+                   "this chain length "
                    f"(probability {probs[label]:.2f}; good {probs['good']:.2f}, near theta {probs['near_theta']:.2f}, "
                    f"poor {probs['poor']:.2f}).")
         if expected is not None:
@@ -916,7 +917,7 @@ def check_theta(ctx, timestep, seconds, steps_per_second):
         return [Verdict("theta", "theta temperature from a sweep", "note", None, None, "epsilon/k_B", "", "",
                         f"No theta estimate from this sweep ({fitted}); widen sweep_temperatures or raise the "
                         "budget." + (f" Note: {note}." if note else ""))]
-    where = "above" if best["value"] > ctx.kT else "below"
+    where = "above" if ctx.kT > best["value"] else "below"
     return [Verdict("theta", "theta temperature from a sweep (estimators side by side in the report)", "note",
                     best["value"], best["error"], "epsilon/k_B", "", "error from the budget's sampling",
                     f"theta = {best['value']:.3g} +- {best['error']:.2g} ({best['how']}); the model's temperature "
@@ -957,7 +958,7 @@ def production_estimate(ctx, timestep, max_beads=20_000, repeats=3):
     except MinimizationError as exc:
         log.info("production timing: minimisation stopped early (%s); timing from there", exc)
     n_timed = sim.system.n_beads
-    block = max(50, int(1_000_000 / n_timed))
+    block = max(50, int(300_000 / n_timed))
     sim.advance(block // 5)
     rates = []
     for _ in range(repeats):

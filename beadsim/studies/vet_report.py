@@ -36,6 +36,8 @@ table { border-collapse: collapse; width: 100%; font-size: .9rem; }
 th, td { text-align: left; vertical-align: top; padding: .28rem .45rem; border-top: 1px solid #b9b9b9; }
 th { border-top: 2px solid #161616; }
 td.num { white-space: nowrap; font-family: "DejaVu Sans Mono", monospace; font-size: .85rem; }
+.unit { display: block; max-width: 9rem; white-space: normal; font: .75rem "DejaVu Serif", Georgia, serif;
+        color: #444; }
 .st { font-weight: bold; text-transform: uppercase; font-size: .78rem; letter-spacing: .04em; }
 .st-fail { color: #8a1c1c; } .st-pass { color: #1f5c2e; } .st-note, .st-skipped { color: #5a5a5a; }
 figure { margin: 1rem 0; break-inside: avoid; } figure img { max-width: 100%; height: auto; }
@@ -61,25 +63,30 @@ def _timestep_figures(scan, folder):
     ax.legend(fontsize=6, ncol=2)
     energy = _save(fig, folder / "timestep_energy.png")[0]
 
-    fig, ax = _axes((5.4, 3.6))
+    fig = Figure(figsize=(5.6, 5.4))
     done = [r for r in rows if r["drift"] is not None]
     dts = np.array([r["timestep"] for r in done])
-    drift = np.array([max(abs(r["drift"]), 1e-12) for r in done])
-    err = np.array([r["drift_error"] or 0.0 for r in done])
     stable = np.array([r["stable"] for r in done], dtype=bool)
-    if stable.any():
-        ax.errorbar(dts[stable], drift[stable], yerr=err[stable], fmt="o", color="C0", label="stable")
-    if (~stable).any():
-        ax.plot(dts[~stable], drift[~stable], "x", color="C3", ms=8, label="unstable")
-    ax.axhline(scan["drift_limit"], color="k", ls="--", lw=0.8, label=f"limit {scan['drift_limit']:g}")
-    ax.axvline(scan["model_timestep"], color="C1", lw=1, label=f"model dt = {scan['model_timestep']:g}")
-    if scan["suggested"]:
-        ax.axvline(scan["suggested"], color="C2", ls=":", lw=1.2, label=f"suggested {scan['suggested']:g}")
-    ax.set_xscale("log")
-    ax.set_yscale("log")
-    ax.set_xlabel("timestep [tau]")
-    ax.set_ylabel("|dE/dt| per bead [kT/tau]")
-    ax.legend(fontsize=7)
+    panels = ((fig.add_subplot(2, 1, 1), [max(abs(r["drift"]), 1e-12) for r in done],
+               [r["drift_error"] or 0.0 for r in done], scan["drift_limit"], "|dE/dt| per bead [kT/tau]"),
+              (fig.add_subplot(2, 1, 2), [max(r["fluctuation_ratio"], 1e-12) for r in done], None,
+               scan["fluctuation_limit"], "rms(E) / rms(K)"))
+    for ax, values, errors, limit, label in panels:
+        values = np.asarray(values)
+        if stable.any():
+            ax.errorbar(dts[stable], values[stable], yerr=None if errors is None else np.asarray(errors)[stable],
+                        fmt="o", color="C0", label="stable")
+        if (~stable).any():
+            ax.plot(dts[~stable], values[~stable], "x", color="C3", ms=8, label="unstable")
+        ax.axhline(limit, color="k", ls="--", lw=0.8, label=f"limit {limit:g}")
+        ax.axvline(scan["model_timestep"], color="C1", lw=1, label=f"model dt = {scan['model_timestep']:g}")
+        if scan["suggested"]:
+            ax.axvline(scan["suggested"], color="C2", ls=":", lw=1.2, label=f"suggested {scan['suggested']:g}")
+        ax.set_xscale("log")
+        ax.set_yscale("log")
+        ax.set_ylabel(label)
+    panels[0][0].legend(fontsize=7)
+    panels[1][0].set_xlabel("timestep [tau]")
     return {"timestep_energy": energy, "timestep_drift": _save(fig, folder / "timestep_drift.png")[0]}
 
 
@@ -174,7 +181,7 @@ def _number(value, error=None, unit=""):
     text = f"{value:.4g}"
     if error is not None and isinstance(error, float) and math.isfinite(error):
         text += f" &plusmn; {error:.2g}"
-    return text + (f" {_esc(unit)}" if unit and unit != "relative" else "")
+    return text + (f"<span class='unit'>{_esc(unit)}</span>" if unit else "")
 
 
 def _figure(path, caption):
@@ -185,7 +192,8 @@ def _figure(path, caption):
 
 CAPTIONS = {
     "timestep_energy": "Velocity Verlet without thermostat from one equilibrated state: total-energy deviation per bead.",
-    "timestep_drift": "Energy drift per bead against the timestep; the dashed line is the stability limit.",
+    "timestep_drift": ("Energy drift per bead (top) and total-energy fluctuations relative to kinetic ones "
+                       "(bottom) against the timestep; a timestep is stable below both dashed limits."),
     "table_bond": "Bond table: energy and force rows.",
     "table_pair": "Pair table: energy and force rows.",
     "crossing": "Energy of two bonds crossing at their midpoints against the bond length, in kT.",
