@@ -1,0 +1,324 @@
+"""Reweighting across temperatures with MBAR: smooth averages and heat capacity between sampled temperatures.
+
+Method: the multistate Bennett acceptance ratio (MBAR; Shirts and Chodera,
+J. Chem. Phys. 129, 124105, 2008) through :class:`pymbar.MBAR`. Samples from K
+canonical ensembles at temperatures T_k (one model, so the reduced potential of
+configuration x at temperature T is ``u(x; T) = U(x) / T`` with k_B = 1; kinetic
+terms cancel because only configurations are reweighted) are pooled; the
+average of an observable A at any temperature T inside the sampled range is
+
+    <A>_T = sum_n w_n(T) A_n,   w_n(T) ∝ exp(-U_n / T) / sum_k N_k exp(f_k - U_n / T_k),
+
+with f_k the dimensionless free energies MBAR solves for. Error bars are MBAR's
+asymptotic standard errors. MBAR needs uncorrelated samples: each temperature's
+series is first cut at its detected equilibration (Chodera, J. Chem. Theory
+Comput. 12, 1799, 2016) and then subsampled every g samples, g the largest
+statistical inefficiency of its energy and observables
+(:func:`pymbar.timeseries.subsample_correlated_data`).
+
+The configurational heat capacity per bead is
+``C/N = (<U^2> - <U>^2) / (N T^2)`` (k_B), the quantity direct runs report in
+the sweep's results table; its error follows from the MBAR covariance of
+``<U>`` and ``<U^2>`` by linear propagation. The transition temperature is
+the maximum of C(T) on a fine grid refined by a parabola through the three
+highest grid points; its error is the standard deviation over bootstrap
+resamples of the decorrelated samples (each resample solved again by MBAR).
+"""
+
+import itertools
+import logging
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.special import logsumexp
+
+from .._validate import as_array, positive_int
+from ..errors import AnalysisError, InputError
+from .stats import MIN_SAMPLES, detect_equilibration, statistical_inefficiency, timeseries
+
+logger = logging.getLogger(__name__)
+
+
+@dataclass(frozen=True)
+class Pooled:
+    """Decorrelated samples of K temperatures, ready for MBAR.
+
+    Attributes
+    ----------
+    temperatures : ndarray, shape (K,), float64
+        epsilon/k_B, increasing.
+    energies : ndarray, shape (n,), float64
+        Potential energy of every kept sample, epsilon (all temperatures, rung after rung).
+    observables : dict of str to ndarray, shape (n,)
+        The observables of the same samples.
+    counts : ndarray, shape (K,), int64
+        Samples kept per temperature.
+    inefficiencies : ndarray, shape (K,), float64
+        Statistical inefficiency g used to subsample each temperature, in samples.
+    equilibration : ndarray, shape (K,), int64
+        First sample counted as equilibrated at each temperature.
+    """
+
+    temperatures: np.ndarray
+    energies: np.ndarray
+    observables: dict
+    counts: np.ndarray
+    inefficiencies: np.ndarray
+    equilibration: np.ndarray
+
+
+def pool_samples(temperatures, energies, observables=None, detect=True):
+    """Cut each temperature's series at equilibration and subsample it to uncorrelated samples.
+
+    Parameters
+    ----------
+    temperatures : array_like, shape (K,), float64
+        Temperature of each series, epsilon/k_B, strictly increasing, K >= 2.
+    energies : sequence of K array_like, shape (n_k,)
+        Potential energy time series at each temperature, epsilon.
+    observables : dict of str to sequence of K array_like, shape (n_k,), optional
+        Further time series sampled with the energies (e.g. ``rg2``).
+    detect : bool
+        Discard an equilibration period found by Chodera's method.
+
+    Returns
+    -------
+    Pooled
+    """
+    t = as_array(temperatures, "temperatures", shape=(None,))
+    if t.size < 2 or np.any(t <= 0) or np.any(np.diff(t) <= 0):
+        raise InputError(f"temperatures: need two or more strictly increasing values > 0, got {t.tolist()}")
+    observables = dict(observables or {})
+    if len(energies) != t.size or any(len(v) != t.size for v in observables.values()):
+        raise InputError(f"energies and observables: need one series per temperature ({t.size})")
+    kept_u, kept_obs = [], {name: [] for name in observables}
+    counts, gs, starts = [], [], []
+    for k in range(t.size):
+        u = as_array(energies[k], f"energies[{k}]", shape=(None,))
+        series = {name: as_array(v[k], f"observables[{name!r}][{k}]", shape=(u.size,))
+                  for name, v in observables.items()}
+        if u.size < MIN_SAMPLES:
+            raise AnalysisError(f"temperature {t[k]:g}: only {u.size} samples; MBAR needs {MIN_SAMPLES} or more "
+                                "per temperature (sample for longer)")
+        t0 = detect_equilibration(u)[0] if detect else 0
+        g = max([_inefficiency(u[t0:])] + [_inefficiency(x[t0:]) for x in series.values()])
+        index = np.asarray(timeseries.subsample_correlated_data(u[t0:], g=g), dtype=np.int64) + t0
+        kept_u.append(u[index])
+        for name, x in series.items():
+            kept_obs[name].append(x[index])
+        counts.append(index.size)
+        gs.append(g)
+        starts.append(t0)
+    return Pooled(temperatures=t, energies=np.concatenate(kept_u),
+                  observables={name: np.concatenate(v) for name, v in kept_obs.items()},
+                  counts=np.array(counts, dtype=np.int64), inefficiencies=np.array(gs),
+                  equilibration=np.array(starts, dtype=np.int64))
+
+
+def _inefficiency(x):
+    """g of a series, 1 for a constant one (nothing to decorrelate)."""
+    return 1.0 if np.ptp(x) == 0 else statistical_inefficiency(x)
+
+
+def _reduced(energies, temperatures):
+    """Reduced potentials u_kn = U_n / T_k, shape (K, n)."""
+    return energies[None, :] / temperatures[:, None]
+
+
+def _solve(pooled, initial_f_k=None):
+    from pymbar import MBAR  # after .stats, which quiets pymbar's import-time log
+    return MBAR(_reduced(pooled.energies, pooled.temperatures), pooled.counts, initial_f_k=initial_f_k)
+
+
+@dataclass(frozen=True)
+class Curves:
+    """MBAR averages on a temperature grid.
+
+    Attributes
+    ----------
+    temperatures : ndarray, shape (L,), float64
+        Grid, epsilon/k_B.
+    means, errors : dict of str to ndarray, shape (L,)
+        ``potential_energy`` (epsilon, per bead), ``heat_capacity`` (k_B per bead) and every pooled
+        observable, with their standard errors.
+    n_beads : int
+        Beads the per-bead quantities are divided by.
+    overlap : float
+        Second-largest eigenvalue gap of MBAR's overlap matrix (``1 - lambda_2``): near 0 means the
+        sampled temperatures do not overlap and the curves between them are not to be trusted.
+    pooled : Pooled
+        The samples used.
+    """
+
+    temperatures: np.ndarray
+    means: dict
+    errors: dict
+    n_beads: int
+    overlap: float
+    pooled: Pooled = field(repr=False)
+
+    def table(self):
+        """The curves as a pandas DataFrame: ``temperature``, then each quantity and its ``_error``."""
+        import pandas as pd
+        data = {"temperature": self.temperatures}
+        for name in self.means:
+            data[name] = self.means[name]
+            data[f"{name}_error"] = self.errors[name]
+        return pd.DataFrame(data)
+
+
+def _check_grid(grid, pooled):
+    g = as_array(grid, "grid", shape=(None,))
+    lo, hi = pooled.temperatures[0], pooled.temperatures[-1]
+    outside = g[(g < lo * (1 - 1e-12)) | (g > hi * (1 + 1e-12))]
+    if g.size == 0 or outside.size:
+        raise InputError(f"grid: temperatures must lie inside the sampled range [{lo:g}, {hi:g}]; "
+                         f"got {outside.tolist() or 'an empty grid'} (MBAR does not extrapolate)")
+    return g
+
+
+def reweighted_curves(pooled, grid, n_beads):
+    """MBAR averages, errors and heat capacity at every temperature of ``grid``.
+
+    Parameters
+    ----------
+    pooled : Pooled
+        From :func:`pool_samples`.
+    grid : array_like, shape (L,), float64
+        Temperatures inside the sampled range, epsilon/k_B.
+    n_beads : int
+        Beads in the system (per-bead energy and heat capacity).
+
+    Returns
+    -------
+    Curves
+    """
+    grid = _check_grid(grid, pooled)
+    n_beads = positive_int(n_beads, "n_beads")
+    mbar = _solve(pooled)
+    u_ln = _reduced(pooled.energies, grid)
+    means, errors = {}, {}
+    for name, values in pooled.observables.items():
+        out = mbar.compute_expectations(values, u_kn=u_ln)
+        means[name], errors[name] = np.asarray(out["mu"]), np.asarray(out["sigma"])
+    shift = pooled.energies.mean()
+    du = pooled.energies - shift
+    u_mean, u_err, cv, cv_err = (np.empty(grid.size) for _ in range(4))
+    for i, temp in enumerate(grid):
+        mu, cov = _two_moments(mbar, du, u_ln[i])
+        u_mean[i], u_err[i] = mu[0] + shift, np.sqrt(max(cov[0, 0], 0.0))
+        scale = 1.0 / (n_beads * temp * temp)
+        cv[i] = (mu[1] - mu[0] ** 2) * scale
+        jac = np.array([-2.0 * mu[0], 1.0]) * scale
+        cv_err[i] = np.sqrt(max(jac @ cov @ jac, 0.0))
+    means["potential_energy"], errors["potential_energy"] = u_mean / n_beads, u_err / n_beads
+    means["heat_capacity"], errors["heat_capacity"] = cv, cv_err
+    overlap = mbar.compute_overlap()
+    return Curves(temperatures=grid, means=means, errors=errors, n_beads=n_beads,
+                  overlap=float(1.0 - np.sort(np.real(overlap["eigenvalues"]))[::-1][1]), pooled=pooled)
+
+
+def _two_moments(mbar, du, u_n):
+    """MBAR estimates of <dU> and <dU^2> at the state with reduced potentials ``u_n``, and their covariance.
+
+    The covariance is built from pymbar's Theta matrix of the augmented states exactly as pymbar
+    builds the standard errors it returns (their squares are its diagonal).
+    """
+    out = mbar.compute_multiple_expectations(np.vstack([du, du * du]), u_n, return_theta=True)
+    theta = np.asarray(out["Theta"])
+    cov = theta[:2, :2] + theta[2:, 2:] - theta[:2, 2:] - theta[2:, :2]
+    return np.asarray(out["mu"]), cov
+
+
+def _heat_capacity_curve(energies, temperatures, counts, f_k, grid, n_beads):
+    """MBAR heat capacity per bead on ``grid`` from solved free energies (vectorised weights, module notes)."""
+    log_denominator = logsumexp(np.log(counts)[:, None] + f_k[:, None] - _reduced(energies, temperatures), axis=0)
+    log_w = -_reduced(energies, grid) - log_denominator[None, :]
+    w = np.exp(log_w - logsumexp(log_w, axis=1, keepdims=True))
+    du = energies - energies.mean()
+    first, second = w @ du, w @ (du * du)
+    return (second - first ** 2) / (n_beads * grid ** 2)
+
+
+def _peak(grid, curve):
+    """Grid maximum refined by a parabola through it and its neighbours; None at the grid's edge."""
+    top = int(np.argmax(curve))
+    if top in (0, grid.size - 1):
+        return None
+    a, b, _ = np.polyfit(grid[top - 1:top + 2] - grid[top], curve[top - 1:top + 2], 2)
+    return float(grid[top] - b / (2 * a)) if a < 0 else float(grid[top])
+
+
+@dataclass(frozen=True)
+class Peak:
+    """Temperature of the heat-capacity maximum.
+
+    Attributes
+    ----------
+    value : float or None
+        epsilon/k_B; None when the maximum lies at the edge of the sampled range.
+    error : float or None
+        Bootstrap standard deviation, epsilon/k_B.
+    height : float or None
+        C/N at the maximum, k_B.
+    n_bootstrap : int
+        Resamples with an interior maximum (of those drawn).
+    note : str
+        Why ``value`` is None, or caveats.
+    """
+
+    value: float | None
+    error: float | None
+    height: float | None
+    n_bootstrap: int
+    note: str = ""
+
+
+def heat_capacity_peak(pooled, n_beads, n_grid=401, n_bootstrap=100, seed=0):
+    """Transition temperature from the maximum of the MBAR heat capacity, with a bootstrap error.
+
+    Parameters
+    ----------
+    pooled : Pooled
+        From :func:`pool_samples`.
+    n_beads : int
+        Beads in the system.
+    n_grid : int
+        Grid points across the sampled range.
+    n_bootstrap : int
+        Resamples (within each temperature, with replacement) for the error; >= 10.
+    seed : int
+        Seed of the resampling.
+
+    Returns
+    -------
+    Peak
+    """
+    n_beads = positive_int(n_beads, "n_beads")
+    n_bootstrap = positive_int(n_bootstrap, "n_bootstrap")
+    if n_bootstrap < 10:
+        raise InputError(f"n_bootstrap: need 10 or more resamples for an error, got {n_bootstrap}")
+    grid = np.linspace(pooled.temperatures[0], pooled.temperatures[-1], positive_int(n_grid, "n_grid"))
+    mbar = _solve(pooled)
+    f_k = np.asarray(mbar.f_k)
+    curve = _heat_capacity_curve(pooled.energies, pooled.temperatures, pooled.counts, f_k, grid, n_beads)
+    value = _peak(grid, curve)
+    if value is None:
+        return Peak(None, None, None, 0, "the heat capacity is largest at the edge of the sampled range: "
+                    "extend the ladder past the transition")
+    rng = np.random.default_rng(seed)
+    bounds = np.concatenate([[0], np.cumsum(pooled.counts)])
+    found = []
+    for _ in range(n_bootstrap):
+        pick = np.concatenate([rng.integers(a, b, b - a) for a, b in itertools.pairwise(bounds)])
+        resample = Pooled(pooled.temperatures, pooled.energies[pick], {}, pooled.counts, pooled.inefficiencies,
+                          pooled.equilibration)
+        f_b = np.asarray(_solve(resample, initial_f_k=f_k).f_k)
+        peak = _peak(grid, _heat_capacity_curve(resample.energies, pooled.temperatures, pooled.counts, f_b, grid,
+                                                n_beads))
+        if peak is not None:
+            found.append(peak)
+    note = "" if len(found) == n_bootstrap else (f"{n_bootstrap - len(found)} of {n_bootstrap} resamples had "
+                                                 "their maximum at the edge of the range")
+    error = float(np.std(found, ddof=1)) if len(found) >= 10 else None
+    return Peak(value, error, float(np.interp(value, grid, curve)), len(found), note)
