@@ -56,6 +56,7 @@ class Simulation:
         self.info = np.zeros(2, dtype=np.int64)
         self.step_count = 0
         self.rebuilds = 0
+        self.hybrid = None  # a HybridSampler attaches itself here (beadsim.engine.hybrid)
         self.neighbors.build(system.positions, self.box_lengths, system.box.periodic)
         self.compute_forces()
 
@@ -86,8 +87,15 @@ class Simulation:
         self.compute_forces()
 
     def advance(self, n_steps):
-        """Take ``n_steps`` integrator steps (no output); see :func:`beadsim.engine.loop.iterate`."""
-        self.integrator.step(self, positive_int(n_steps, "n_steps", allow_zero=True))
+        """Take ``n_steps`` integrator steps (no output); see :func:`beadsim.engine.loop.iterate`.
+
+        With a hybrid sampler attached, rounds of Monte Carlo moves come between the steps.
+        """
+        n_steps = positive_int(n_steps, "n_steps", allow_zero=True)
+        if self.hybrid is None:
+            self.integrator.step(self, n_steps)
+        else:
+            self.hybrid.advance(n_steps)
 
     def run(self, n_steps, every=None, observers=()):
         """Run ``n_steps`` steps, passing a snapshot every ``every`` steps to each observer."""
@@ -130,13 +138,16 @@ class Simulation:
 
     def state_arrays(self):
         """Everything needed for an exact restart, as plain arrays (for checkpoints)."""
-        return {
+        arrays = {
             "positions": self.system.positions.copy(),
             "velocities": self.system.velocities.copy(),
             "list_reference": self.neighbors.ref.copy(),
             "step_count": np.array(self.step_count, dtype=np.int64),
             "seed": np.array(self.noise_seed, dtype=np.uint64),
         }
+        if self.hybrid is not None:
+            arrays.update(self.hybrid.state_arrays())
+        return arrays
 
     def restore(self, arrays):
         """Restore a state written by :meth:`state_arrays`, bit for bit.
@@ -155,6 +166,8 @@ class Simulation:
         ref = np.ascontiguousarray(arrays["list_reference"], dtype=np.float64)
         self.neighbors.build(ref, self.box_lengths, self.system.box.periodic)
         self.compute_forces()
+        if self.hybrid is not None:
+            self.hybrid.restore(arrays)
 
 
 def _coincident_message(system):

@@ -1,0 +1,205 @@
+"""Hybrid sampling of equilibrium statics: Langevin segments interleaved with Monte Carlo chain moves.
+
+Every ``segment_steps`` integrator steps (counted on the simulation's step
+count, so resumed runs meet the same boundaries) the sampler attempts
+``pivot_moves`` pivot moves and ``crankshaft_moves`` crankshaft moves
+(:mod:`beadsim.kernels.pivot`), each accepted by the Metropolis rule on the full
+potential at the thermostat temperature. Each move leaves the Boltzmann
+distribution of positions invariant and the Langevin steps leave the joint
+distribution of positions and velocities invariant; velocities are independent
+of positions in that distribution, so they are kept as they are across a move.
+After the moves the Verlet list is rebuilt and the forces recomputed.
+
+The moves teleport parts of a chain: time correlations, diffusion and
+relaxation times measured from a hybrid run mean nothing. Only static
+(equilibrium) averages are valid.
+"""
+
+import logging
+import math
+
+import numpy as np
+
+from .._validate import positive, positive_int
+from ..errors import InputError
+from ..kernels import pivot as KP
+from ..model.build import stream_seed
+from .threads import threads_for
+
+log = logging.getLogger(__name__)
+
+_MOVE_STREAM = 0x3C6EF372  # distinct from the thermostat's and the builders' streams
+
+MOVE_KINDS = {"pivot": KP.PIVOT, "crankshaft": KP.CRANKSHAFT}
+
+DYNAMICS_CAUTION = ("hybrid sampling moves chains by Monte Carlo jumps between Langevin segments: "
+                    "static averages (Rg, Re, shape, scattering, energies) are valid, but dynamics-derived "
+                    "quantities (diffusion coefficients, relaxation and autocorrelation times in tau, "
+                    "mean-square displacements) are meaningless for this run")
+
+
+def _incidence(n, terms):
+    """Terms (rows of bead indices) each bead belongs to, in compressed rows: int64 (n+1,), (m,)."""
+    terms = np.asarray(terms, dtype=np.int64)
+    beads = terms.ravel()
+    owner = np.repeat(np.arange(len(terms), dtype=np.int64), terms.shape[1])
+    order = np.argsort(beads, kind="stable")
+    start = np.zeros(n + 1, dtype=np.int64)
+    np.add.at(start, beads + 1, 1)
+    return np.cumsum(start), np.ascontiguousarray(owner[order])
+
+
+class HybridSampler:
+    """Monte Carlo pivot and crankshaft moves interleaved with the Langevin steps of a Simulation.
+
+    Parameters
+    ----------
+    sim : beadsim.engine.simulation.Simulation
+        Open box, thermostatted integrator; any number of chains of >= 3 beads.
+    segment_steps : int
+        Integrator steps between two rounds of moves.
+    pivot_moves, crankshaft_moves : int
+        Moves of each kind per round (>= 0, not both 0).
+    crankshaft_max_angle : float
+        Largest crankshaft rotation, degrees (0 < angle <= 180).
+    attach : bool
+        Make ``sim.advance`` (hence ``sim.run`` and :func:`~beadsim.engine.loop.iterate`)
+        interleave the moves, and checkpoints carry the sampler's state.
+
+    Attributes
+    ----------
+    move_count : int
+        Moves attempted over the run (all kinds); it selects the random numbers,
+        so the run's random state is (seed, step count, move_count).
+    counts : dict of str -> int64 (2,)
+        Attempted and accepted moves of each kind.
+
+    Examples
+    --------
+    >>> import beadsim as bs
+    >>> from beadsim.engine.hybrid import HybridSampler
+    >>> sim = bs.Simulation(bs.build_chains(64, seed=1), bs.ForceField(bs.WCA(), bs.FENE()),
+    ...                     bs.BAOABLangevin(0.005), seed=1)
+    >>> sampler = HybridSampler(sim, segment_steps=200, pivot_moves=64)   # doctest: +SKIP
+    >>> sim.run(20_000)                                                   # doctest: +SKIP
+    >>> sampler.acceptance()                                              # doctest: +SKIP
+    """
+
+    def __init__(self, sim, segment_steps=1000, pivot_moves=100, crankshaft_moves=0, crankshaft_max_angle=180.0,
+                 attach=True):
+        system = sim.system
+        if system.box.periodic:
+            raise InputError("hybrid sampling: pivot and crankshaft moves are implemented for open boxes only "
+                             "([box] kind = 'open'); in a periodic box use method = 'dynamics'")
+        if not sim.integrator.thermostatted:
+            raise InputError(f"hybrid sampling: the integrator {type(sim.integrator).__name__} holds no "
+                             "temperature for the Metropolis rule; use a thermostatted one (baoab or brownian)")
+        self.sim = sim
+        self.segment_steps = positive_int(segment_steps, "segment_steps")
+        self.moves = {"pivot": positive_int(pivot_moves, "pivot_moves", allow_zero=True),
+                      "crankshaft": positive_int(crankshaft_moves, "crankshaft_moves", allow_zero=True)}
+        if not any(self.moves.values()):
+            raise InputError("hybrid sampling: pivot_moves and crankshaft_moves are both 0; ask for moves of at "
+                             "least one kind, or use method = 'dynamics'")
+        angle = positive(crankshaft_max_angle, "crankshaft_max_angle")
+        if angle > 180.0:
+            raise InputError(f"crankshaft_max_angle: must lie in (0, 180] degrees, got {crankshaft_max_angle!r}")
+        self.max_angle = math.radians(angle)
+        n = system.n_beads
+        offsets = system.chain_offsets
+        lengths = np.asarray(system.chain_lengths)
+        self.chain_lo = np.repeat(offsets[:-1], lengths).astype(np.int64)
+        self.chain_hi = np.repeat(offsets[1:], lengths).astype(np.int64)
+        idx = np.arange(n, dtype=np.int64)
+        self.candidates = idx[(idx > self.chain_lo) & (idx < self.chain_hi - 1)]
+        if self.candidates.size == 0:
+            raise InputError("hybrid sampling: no chain has an interior bead (chains of 3 or more beads are "
+                             "needed for pivot and crankshaft moves)")
+        ff = sim.compiled.arrays
+        self.bond_start, self.bond_of = _incidence(n, ff[3])
+        self.angle_start, self.angle_of = _incidence(n, ff[7])
+        self.width = float(sim.compiled.cutoff)
+        n_buckets = int(KP.bucket_count(n)) if self.width > 0 else 1
+        self.head = np.full(n_buckets, -1, dtype=np.int64)
+        self.nxt = np.full(n, -1, dtype=np.int64)
+        self.prv = np.full(n, -1, dtype=np.int64)
+        self.bucket = np.zeros(n, dtype=np.int64)
+        self.trial = np.zeros((n, 3))
+        self.seed = stream_seed(sim.seed, _MOVE_STREAM)
+        self.move_count = 0
+        self.counts = {kind: np.zeros(2, dtype=np.int64) for kind in MOVE_KINDS}
+        if attach:
+            sim.hybrid = self
+
+    def monte_carlo(self, pivot_moves=None, crankshaft_moves=None, refresh=True):
+        """One round of moves (pivots first, then crankshafts), then rebuild the list and the forces.
+
+        Parameters
+        ----------
+        pivot_moves, crankshaft_moves : int, optional
+            Override the per-round numbers given to the constructor.
+        refresh : bool
+            Rebuild the Verlet list and recompute the forces afterwards. Only a
+            caller doing nothing but Monte Carlo may pass False, and must call
+            ``sim.refresh_neighbors()`` before any dynamics.
+        """
+        sim = self.sim
+        wanted = {"pivot": self.moves["pivot"] if pivot_moves is None
+                  else positive_int(pivot_moves, "pivot_moves", allow_zero=True),
+                  "crankshaft": self.moves["crankshaft"] if crankshaft_moves is None
+                  else positive_int(crankshaft_moves, "crankshaft_moves", allow_zero=True)}
+        pos = sim.system.positions
+        if self.width > 0:
+            KP.build_cells(pos, self.width, self.head, self.nxt, self.prv, self.bucket)
+        for kind, n_moves in wanted.items():
+            if n_moves == 0:
+                continue
+            KP.metropolis_moves(MOVE_KINDS[kind], n_moves, self.move_count, self.seed, sim.integrator.temperature,
+                                self.max_angle, pos, sim.system.types, sim.compiled.arrays, sim.compiled.excl_start,
+                                sim.compiled.excl, self.bond_start, self.bond_of, self.angle_start, self.angle_of,
+                                self.candidates, self.chain_lo, self.chain_hi, self.width, self.head, self.nxt,
+                                self.prv, self.bucket, self.trial, self.counts[kind])
+            self.move_count += n_moves
+        if refresh:
+            with threads_for(sim.system.n_beads):
+                sim.refresh_neighbors()
+
+    def advance(self, n_steps):
+        """Take ``n_steps`` integrator steps, with a round of moves whenever the step count reaches a
+        multiple of ``segment_steps``."""
+        sim = self.sim
+        end = sim.step_count + positive_int(n_steps, "n_steps", allow_zero=True)
+        while sim.step_count < end:
+            target = min(end, (sim.step_count // self.segment_steps + 1) * self.segment_steps)
+            sim.integrator.step(sim, target - sim.step_count)
+            if sim.step_count % self.segment_steps == 0:
+                self.monte_carlo()
+
+    def acceptance(self):
+        """Attempted and accepted moves and the acceptance rate of each kind asked for.
+
+        Returns
+        -------
+        dict
+            ``{kind: {"attempted": int, "accepted": int, "rate": float or None}}``.
+        """
+        out = {}
+        for kind, (tried, took) in self.counts.items():
+            if self.moves[kind] or tried:
+                out[kind] = {"attempted": int(tried), "accepted": int(took),
+                             "rate": float(took) / float(tried) if tried else None}
+        return out
+
+    def state_arrays(self):
+        """The sampler's part of a checkpoint (plain arrays)."""
+        return {"hybrid_move_count": np.array(self.move_count, dtype=np.int64),
+                "hybrid_counts": np.array([self.counts[k] for k in MOVE_KINDS], dtype=np.int64)}
+
+    def restore(self, arrays):
+        """Restore :meth:`state_arrays` (a checkpoint without them starts the move count at 0)."""
+        if "hybrid_move_count" not in arrays:
+            return
+        self.move_count = int(arrays["hybrid_move_count"])
+        counts = np.asarray(arrays["hybrid_counts"], dtype=np.int64).reshape(len(MOVE_KINDS), 2)
+        for k, kind in enumerate(MOVE_KINDS):
+            self.counts[kind][:] = counts[k]
