@@ -85,6 +85,20 @@ SCHEMA = {
         "friction": (float, 0.5, POSITIVE, "Langevin friction gamma, 1/tau"),
         "skin": (float, 0.4, POSITIVE, "Verlet-list skin, sigma"),
     },
+    "sampling": {
+        "method": (str, "dynamics", choice("dynamics", "hybrid"),
+                   "dynamics: Langevin only; hybrid: Langevin segments alternating with Monte Carlo pivot and "
+                   "crankshaft moves (open boxes; static averages only, dynamics-derived quantities are "
+                   "meaningless)"),
+        "segment_steps": (int, 1000, AT_LEAST_ONE, "hybrid: integrator steps between two rounds of moves"),
+        "pivot_moves_per_segment": (int, 100, ("an integer >= 0", lambda v: v >= 0),
+                                    "hybrid: pivot moves (rotate or reflect one end of a chain) per round"),
+        "crankshaft_moves_per_segment": (int, 0, ("an integer >= 0", lambda v: v >= 0),
+                                         "hybrid: crankshaft moves (one interior bead about its neighbours' "
+                                         "axis) per round"),
+        "crankshaft_max_angle": (float, 180.0, ("a number in (0, 180]", lambda v: 0 < v <= 180),
+                                 "hybrid: largest crankshaft rotation, degrees"),
+    },
     "run": {
         "seed": (int, REQUIRED, ("an integer >= 0", lambda v: v >= 0), "seed of the start structure and the noise"),
         "minimize": (bool, True, _ANY, "remove overlaps with FIRE before dynamics"),
@@ -227,6 +241,27 @@ def _resolve(s, source, base):
         raise InputError(f"{source}: [bonds] max_extension: FENE R0 = {s['bonds']['max_extension']} must exceed "
                          f"the start bond_length = {s['bonds']['bond_length']}")
     _apply_solvent_preset(s, source)
+    _check_sampling(s, source)
+
+
+def _check_sampling(s, source):
+    """Hybrid sampling needs an open box, a thermostat, some moves and chains with interior beads."""
+    sm = s["sampling"]
+    if sm["method"] != "hybrid":
+        return
+    where = f"{source}: [sampling] method = 'hybrid'"
+    if s["box"]["kind"] != "open":
+        raise InputError(f"{where} needs [box] kind = 'open' (pivot and crankshaft moves are implemented for "
+                         "isolated chains only); use method = 'dynamics' in a periodic box")
+    if not INTEGRATORS[s["dynamics"]["integrator"]].thermostatted:
+        raise InputError(f"{where} needs a thermostatted [dynamics] integrator (baoab or brownian) for the "
+                         f"temperature of the Metropolis rule, got '{s['dynamics']['integrator']}'")
+    if sm["pivot_moves_per_segment"] == 0 and sm["crankshaft_moves_per_segment"] == 0:
+        raise InputError(f"{where}: pivot_moves_per_segment and crankshaft_moves_per_segment are both 0; "
+                         "set at least one of them > 0")
+    if max(s["chains"]["length"]) < 3:
+        raise InputError(f"{where} needs chains of 3 or more beads ([chains] length), got "
+                         f"{s['chains']['length']!r}")
 
 
 def _apply_solvent_preset(s, source):
