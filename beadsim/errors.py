@@ -37,3 +37,11 @@ class AnalysisError(BeadsimError, ValueError):
 
 class CheckpointError(BeadsimError, RuntimeError):
     """A checkpoint cannot be written or read (disk full, truncated, corrupt or unsafe file); the message names the file."""
+
+
+class OutputError(BeadsimError, RuntimeError):
+    """An output file (trajectory, table) cannot be written, for instance because the disk is full.
+
+    The message names the file; what a checkpoint already covers stays intact, so
+    the run can continue with ``--resume`` once the cause is removed.
+    """

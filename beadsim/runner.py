@@ -4,22 +4,35 @@ Folder contents (names fixed here, documented in the README):
 
 ``input.toml``          the fully resolved input
 ``trajectory.h5``       frames of the production phase (name and format from ``[output] trajectory``)
+``trajectory_parts/``   while the run goes on: frames since the last join, one part per checkpoint interval
 ``observables.csv``     scalar table, one row every ``table_interval`` steps
 ``checkpoint.npz``      last checkpoint (atomic; no pickle)
-``summary.json``        versions, seed, threads, input hash, wall time, throughput
+``summary.json``        versions, seed, threads, input hashes, wall time, throughput
 
-Resuming cuts the trajectory and the table back to the checkpoint's step and
-continues them; because the thermostat noise is a function of (seed, step)
-and the Verlet list is rebuilt from its saved reference positions, a resumed
-run reproduces an uninterrupted one bit for bit.
+Crash safety: every output a checkpoint covers is on disk before the
+checkpoint (table flushed, trajectory part sealed, see
+:mod:`beadsim.io.parts`), and the checkpoint records the trajectory's parts and
+frame counts. Resuming cuts the table back to the checkpoint's step and the
+trajectory back to the checkpoint's parts, so a run killed at any moment
+(``kill -9`` included) loses and duplicates no frame; because the thermostat
+noise is a function of (seed, step) and the Verlet list is rebuilt from its
+saved reference positions, a resumed run reproduces an uninterrupted one bit
+for bit. Ctrl-C or SIGTERM makes the run write a checkpoint at the current
+step before it stops. Every state is checked (:mod:`beadsim.engine.health`)
+before it is written, so a checkpoint never holds a blown-up state.
 """
 
+import contextlib
+import hashlib
 import json
 import logging
 import math
 import os
 import platform
+import signal
+import shutil
 import sys
+import threading
 import time
 from pathlib import Path
 
@@ -27,12 +40,14 @@ import numpy as np
 
 from . import __version__
 from .config import settings_hash, to_toml
+from .engine.health import guarded
 from .engine.integrators import make_integrator
-from .engine.loop import iterate, snapshot
+from .engine.loop import snapshot
 from .engine.simulation import Simulation
-from .errors import InputError
-from .io import (ScalarTable, TrajectoryWriter, make_topology, read_checkpoint, truncate_table,
-                 truncate_trajectory, write_checkpoint)
+from .errors import BeadsimError, InputError
+from .io import ScalarTable, make_topology, read_checkpoint, truncate_table, write_checkpoint
+from .io._atomic import remove_leftovers
+from .io.parts import PartedTrajectory, parts_folder
 from .model.build import build_chains
 from .model.potentials import (FENE, WCA, Bending, CosineSquared, ForceField, HarmonicBond, LennardJones, NoPair,
                                TabulatedBond, TabulatedPair)
@@ -119,16 +134,20 @@ def frames_before(step, settings):
 
 
 class _Recorder:
-    """Observer dispatching snapshots to the trajectory, the table and checkpoints by step."""
+    """Observer dispatching snapshots to the trajectory, the table and checkpoints by step.
 
-    def __init__(self, sim, settings, out, mode):
+    ``manifest`` is the trajectory record of the checkpoint a resumed run
+    continues from (None for a new run).
+    """
+
+    def __init__(self, sim, settings, out, manifest=None):
         o = settings["output"]
         self.sim, self.settings, self.out = sim, settings, out
         self.offsets = sim.system.chain_offsets
         topology = make_topology(sim.system.chain_lengths, sim.system.bonds)
-        self.trajectory = TrajectoryWriter(out / o["trajectory"], topology, o["length_scale_nm"],
-                                           sim.system.box.lengths, mode=mode)
-        self.table = ScalarTable(out / TABLE_FILE, tuple(COLUMNS), mode=mode)
+        args = (out / o["trajectory"], topology, o["length_scale_nm"], sim.system.box.lengths)
+        self.trajectory = PartedTrajectory(*args) if manifest is None else PartedTrajectory.resume(*args, manifest)
+        self.table = ScalarTable(out / TABLE_FILE, tuple(COLUMNS), mode="w" if manifest is None else "a")
         self.every = math.gcd(math.gcd(o["frame_interval"], o["table_interval"]), o["checkpoint_interval"])
 
     def append(self, snap):
@@ -145,15 +164,40 @@ class _Recorder:
             self.checkpoint()
 
     def checkpoint(self):
-        """Flush outputs to disk, then write the checkpoint atomically (outputs never lag behind it)."""
-        self.table.flush()
-        self.trajectory.flush()
-        write_checkpoint(self.out / CHECKPOINT_FILE, self.sim.state_arrays(),
-                         {"input_hash": settings_hash(self.settings), "beadsim": __version__})
+        """Flush the table and seal the trajectory part, then write the checkpoint atomically.
 
-    def close(self):
-        self.table.close()
-        self.trajectory.close()
+        Outputs never lag behind the checkpoint, and the checkpoint records the
+        trajectory's parts and frame counts (see :mod:`beadsim.io.parts`).
+        """
+        self.table.flush()
+        self._write_checkpoint(self.trajectory.seal())
+
+    def _write_checkpoint(self, manifest):
+        write_checkpoint(self.out / CHECKPOINT_FILE, self.sim.state_arrays(),
+                         {"input_hash": settings_hash(self.settings), "beadsim": __version__,
+                          "trajectory": manifest})
+
+    def finish(self):
+        """Join the trajectory parts into the trajectory file, record that in the checkpoint, delete the parts."""
+        before = self.trajectory.manifest()
+        after = self.trajectory.join()
+        if after != before:
+            self._write_checkpoint(after)
+        self.trajectory.discard_parts()
+
+    def close(self, failing=False):
+        """Close the table and the open trajectory part.
+
+        With ``failing`` (the run is already stopping on an error), a failure
+        to close is only logged, so it does not hide the first error.
+        """
+        for output in (self.table, self.trajectory):
+            try:
+                output.close()
+            except BeadsimError as exc:
+                if not failing:
+                    raise
+                log.warning("%s", exc)
 
 
 def prepare_folder(out, settings, resume, overwrite, allow_longer=False):
@@ -190,6 +234,7 @@ def prepare_folder(out, settings, resume, overwrite, allow_longer=False):
     if overwrite:
         for name in (INPUT_FILE, TABLE_FILE, CHECKPOINT_FILE, SUMMARY_FILE, settings["output"]["trajectory"]):
             (out / name).unlink(missing_ok=True)
+        shutil.rmtree(parts_folder(out / settings["output"]["trajectory"]), ignore_errors=True)
     return out
 
 
@@ -231,36 +276,81 @@ def run(settings, out, *, resume=False, overwrite=False, progress=True, allow_lo
     total = settings["run"]["equilibration_steps"] + settings["run"]["production_steps"]
     checkpoint = out / CHECKPOINT_FILE
     resuming = resume and checkpoint.exists()
+    manifest = None
     if resuming:
-        arrays, _ = read_checkpoint(checkpoint)
+        arrays, meta = read_checkpoint(checkpoint)
         sim.restore(arrays)
+        for name in (CHECKPOINT_FILE, TABLE_FILE, settings["output"]["trajectory"], "topology.pdb"):
+            remove_leftovers(out / name)  # temporary files of a write that a kill interrupted
         truncate_table(out / TABLE_FILE, sim.step_count)
-        traj = out / settings["output"]["trajectory"]
-        if traj.exists():
-            truncate_trajectory(traj, frames_before(sim.step_count, settings))
+        # checkpoints written before the trajectory was kept in parts hold every frame in the trajectory file
+        manifest = meta.get("trajectory", {"base_frames": frames_before(sim.step_count, settings), "parts": []})
         log.info("resuming %s at step %d", out, sim.step_count)
     else:
         (out / INPUT_FILE).write_text(to_toml(settings), encoding="utf-8")
         if settings["run"]["minimize"]:
             sim.minimize()
-    recorder = _Recorder(sim, settings, out, "a" if resuming else "w")
+    recorder = _Recorder(sim, settings, out, manifest)
     start_step, started = sim.step_count, time.perf_counter()
     bar = _progress(total, start_step, progress)
     try:
-        if not resuming:
-            recorder.append(snapshot(sim))
-        for snap in iterate(sim, total - sim.step_count, recorder.every):
-            recorder.append(snap)
-            bar.update(snap.step - bar.n)
-        if sim.step_count % settings["output"]["checkpoint_interval"]:
-            recorder.checkpoint()
-    finally:
+        with _StopRequest() as stop:
+            if not resuming:
+                recorder.append(snapshot(sim))
+            for snap in guarded(sim, total - sim.step_count, recorder.every):
+                recorder.append(snap)
+                bar.update(snap.step - bar.n)
+                if stop.signal is not None:
+                    recorder.checkpoint()
+                    log.warning("stopped by signal %d at step %d; checkpoint written (continue with --resume)",
+                                stop.signal, sim.step_count)
+                    raise KeyboardInterrupt
+            if sim.step_count % settings["output"]["checkpoint_interval"]:
+                recorder.checkpoint()
+            recorder.finish()
+    except BaseException:
         bar.close()
-        recorder.close()
+        recorder.close(failing=True)
+        raise
+    bar.close()
+    recorder.close()
     wall = time.perf_counter() - started
     summary = _summary(settings, sim, wall, sim.step_count - start_step)
+    summary["input_toml_sha256"] = hashlib.sha256((out / INPUT_FILE).read_bytes()).hexdigest()
     (out / SUMMARY_FILE).write_text(json.dumps(summary, indent=2) + "\n", encoding="utf-8")
     return summary
+
+
+class _StopRequest:
+    """Context manager turning the first Ctrl-C (SIGINT) or SIGTERM into a request the run loop honours.
+
+    The loop checks :attr:`signal` after each recorded snapshot, writes a
+    checkpoint at that step and stops. A second signal stops at once (the
+    last checkpoint is then the previous one). Handlers are installed only
+    in the main thread (Python allows no other) and restored on exit.
+    """
+
+    SIGNALS = (signal.SIGINT, signal.SIGTERM)
+
+    def __init__(self):
+        self.signal = None
+        self._saved = {}
+
+    def _handle(self, signum, frame):
+        if self.signal is not None:
+            raise KeyboardInterrupt
+        self.signal = signum
+
+    def __enter__(self):
+        if threading.current_thread() is threading.main_thread():
+            for sig in self.SIGNALS:
+                self._saved[sig] = signal.signal(sig, self._handle)
+        return self
+
+    def __exit__(self, *exc):
+        for sig, handler in self._saved.items():
+            with contextlib.suppress(ValueError, TypeError):
+                signal.signal(sig, handler)
 
 
 def _progress(total, start, enabled):
@@ -269,7 +359,16 @@ def _progress(total, start, enabled):
                 desc="beadsim run", smoothing=0.1, file=sys.stderr)
 
 
-def _summary(settings, sim, wall, steps):
+def provenance():
+    """Versions, thread count and machine: what a result depends on besides its input and seed.
+
+    Returns
+    -------
+    dict
+        ``beadsim``, ``python``, ``numpy``, ``numba``, ``mdtraj`` versions,
+        ``numba_threads`` (threads the kernels may use in this process; systems
+        under 1,000 beads run on one) and ``machine``.
+    """
     import mdtraj
     import numba
     return {
@@ -280,6 +379,12 @@ def _summary(settings, sim, wall, steps):
         "mdtraj": mdtraj.__version__,
         "numba_threads": numba.get_num_threads(),
         "machine": f"{platform.machine()} {platform.processor() or ''} ({os.cpu_count()} cores)".strip(),
+    }
+
+
+def _summary(settings, sim, wall, steps):
+    return {
+        **provenance(),
         "seed": settings["run"]["seed"],
         "input_sha256": settings_hash(settings),
         "beads": int(sim.system.n_beads),
@@ -290,3 +395,4 @@ def _summary(settings, sim, wall, steps):
         "verlet_list_rebuilds": int(sim.rebuilds),
         "columns": COLUMNS,
     }
+

@@ -52,6 +52,31 @@ def fsync_path(path):
         os.close(fd)
 
 
+def remove_leftovers(path):
+    """Delete temporary files that :func:`replacing_path` left for ``path`` when its process was killed.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        A target file; only hidden files named ``.<stem>.*.tmp<ext>`` beside
+        it are removed.
+
+    Returns
+    -------
+    list of str
+        Names of the files removed.
+    """
+    path = os.fspath(path)
+    folder = os.path.dirname(os.path.abspath(path))
+    base, ext = os.path.splitext(os.path.basename(path))
+    prefix, suffix = "." + base + ".", ".tmp" + ext
+    removed = [name for name in os.listdir(folder) if name.startswith(prefix) and name.endswith(suffix)]
+    for name in removed:
+        with contextlib.suppress(FileNotFoundError):
+            os.remove(os.path.join(folder, name))
+    return removed
+
+
 @contextlib.contextmanager
 def replacing_path(path):
     """Context manager yielding the name of a temporary file that replaces ``path`` on success.

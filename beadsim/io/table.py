@@ -8,6 +8,7 @@ stopped. Units are those of the quantities themselves (reduced Lennard-Jones
 units: time in tau, energies in epsilon, temperatures in epsilon/k_B).
 """
 
+import contextlib
 import logging
 import os
 import re
@@ -16,7 +17,7 @@ from collections.abc import Mapping
 import numpy as np
 import pandas as pd
 
-from ..errors import InputError
+from ..errors import InputError, OutputError
 from ._atomic import fsync_path, replacing
 
 __all__ = ["ScalarTable", "truncate_table", "read_table"]
@@ -36,6 +37,12 @@ def _format_value(value, column):
         return repr(float(value))
     except (TypeError, ValueError):
         raise InputError(f"values[{column!r}]: expected a number, got {value!r}") from None
+
+
+def _write_failed(path, exc):
+    """OutputError naming ``path`` and the cause of a failed write."""
+    return OutputError(f"{path}: cannot write the table ({exc.strerror or exc}); rows covered by the last "
+                       "checkpoint are intact: free space (or fix the cause) and continue with --resume")
 
 
 def _check_columns(columns):
@@ -137,22 +144,44 @@ class ScalarTable:
                 raise InputError(f"values: expected {len(self.columns)} numbers for columns {self.columns}, "
                                  f"got {len(row)}")
         line = _SEPARATOR.join([str(int(step))] + [_format_value(v, c) for v, c in zip(row, self.columns)])
-        if self._file is None:
-            self._open(self.mode)
-        self._file.write(line + "\n")
+        try:
+            if self._file is None:
+                self._open(self.mode)
+            self._file.write(line + "\n")
+        except OSError as exc:
+            raise _write_failed(self.path, exc) from None
 
     def flush(self):
-        """Push written rows to the operating system and force them to disk."""
+        """Push written rows to the operating system and force them to disk.
+
+        Raises
+        ------
+        beadsim.errors.OutputError
+            The rows could not be written (disk full, ...).
+        """
         if self._file is not None:
-            self._file.flush()
-            fsync_path(self.path)
+            try:
+                self._file.flush()
+                fsync_path(self.path)
+            except OSError as exc:
+                raise _write_failed(self.path, exc) from None
 
     def close(self):
-        """Flush and close the file; calling it again does nothing."""
+        """Flush and close the file; calling it again does nothing.
+
+        The file is closed even when the final flush fails; the failure is then
+        raised as :class:`~beadsim.errors.OutputError`.
+        """
         if self._file is not None:
-            self.flush()
-            self._file.close()
-            self._file = None
+            fh, self._file = self._file, None
+            try:
+                fh.flush()
+                fsync_path(self.path)
+            except OSError as exc:
+                raise _write_failed(self.path, exc) from None
+            finally:
+                with contextlib.suppress(OSError):  # a failed flush fails again here; reported above
+                    fh.close()
 
     def __enter__(self):
         return self

@@ -34,8 +34,9 @@ import tables
 from mdtraj.formats import DCDTrajectoryFile, HDF5TrajectoryFile, PDBTrajectoryFile, XTCTrajectoryFile
 
 from .._validate import as_array, positive
-from ..errors import InputError
+from ..errors import InputError, OutputError
 from ._atomic import fsync_path, replacing_path
+from .safety import refusing_pickles
 
 __all__ = ["TrajectoryWriter", "truncate_trajectory", "count_frames", "load_trajectory", "topology_path",
            "SUPPORTED_SUFFIXES"]
@@ -45,6 +46,16 @@ logger = logging.getLogger(__name__)
 #: Largest atom serial number a PDB file can hold (five digits); chain ends use one each.
 _PDB_MAX_SERIAL = 99999
 _RIGHT_ANGLES = np.array([90.0, 90.0, 90.0])
+
+#: Errors a trajectory library raises when the disk is full or the file cannot be written.
+WRITE_ERRORS = (OSError, tables.exceptions.HDF5ExtError)
+
+
+def _write_failed(path, exc):
+    """OutputError naming ``path`` and the cause of a failed write."""
+    reason = getattr(exc, "strerror", None) or str(exc) or type(exc).__name__
+    return OutputError(f"{path}: cannot write the trajectory ({reason}); frames covered by the last checkpoint "
+                       "are intact: free space (or fix the cause) and continue with --resume")
 
 
 def topology_path(path):
@@ -178,7 +189,7 @@ def _check_continuable(path, n_beads_found, has_cell, topology, periodic):
 
 
 class _HDF5Format(_Format):
-    """mdtraj's HDF5 format: topology in the file, appends and truncates in place."""
+    """mdtraj's HDF5 format: topology in the file, appends in place, truncates by an atomic rewrite."""
 
     suffix = ".h5"
     stores_topology = True
@@ -194,7 +205,7 @@ class _HDF5Format(_Format):
                      cell_angles=None if cell is None else np.broadcast_to(_RIGHT_ANGLES, cell.shape))
 
     def read(self, path):
-        with HDF5TrajectoryFile(path) as handle:
+        with refusing_pickles(path), HDF5TrajectoryFile(path) as handle:
             data = handle.read()
         return _Frames(data.coordinates, data.time, None, data.cell_lengths)
 
@@ -202,29 +213,23 @@ class _HDF5Format(_Format):
         handle.flush()
 
     def count(self, path):
-        with tables.open_file(path, "r") as h5:
+        if os.path.getsize(path) == 0:  # cut back to zero frames
+            return 0
+        with refusing_pickles(path), tables.open_file(path, "r") as h5:
             return h5.root.coordinates.nrows if "/coordinates" in h5 else 0
 
     def open_continued(self, path, topology, periodic):
-        with tables.open_file(path, "r") as h5:
+        if os.path.getsize(path) == 0:  # cut back to zero frames
+            return self.open_new(path, topology), 0
+        with refusing_pickles(path), tables.open_file(path, "r") as h5:
             present = h5.root.coordinates.nrows if "/coordinates" in h5 else 0
             if present:
                 _check_continuable(path, h5.root.coordinates.shape[1], "/cell_lengths" in h5, topology, periodic)
-        handle = HDF5TrajectoryFile(path, "a")
-        if handle.topology is None:
-            handle.topology = topology
+        with refusing_pickles(path):
+            handle = HDF5TrajectoryFile(path, "a")
+            if handle.topology is None:
+                handle.topology = topology
         return handle, present
-
-    def truncate(self, path, n_frames, topology):
-        with tables.open_file(path, "a") as h5:
-            present = h5.root.coordinates.nrows if "/coordinates" in h5 else 0
-            if n_frames > present:
-                raise InputError(f"{path}: cannot keep {n_frames} frames, the file has only {present}")
-            for node in h5.walk_nodes("/", classname="EArray"):
-                if node.extdim == 0 and node.nrows == present:
-                    node.truncate(n_frames)
-            h5.flush()
-        fsync_path(path)
 
 
 class _DCDFormat(_Format):
@@ -421,28 +426,47 @@ class TrajectoryWriter:
             raise InputError(f"step: expected an integer in [0, {np.iinfo(np.int32).max}], got {step!r}")
         time = positive(time, "time", allow_zero=True)
         xyz_nm = as_array(positions, "positions", shape=(self.topology.n_atoms, 3)) * self.length_scale_nm
-        if self._handle is None:
-            self._open(xyz_nm)
         scale = self._format.nm_to_native
         cell = None if self.box_lengths is None else (self.box_lengths * (self.length_scale_nm * scale))[np.newaxis]
         frames = _Frames((xyz_nm * scale)[np.newaxis], np.array([time], dtype=np.float32),
                          np.array([step], dtype=np.int32), None if cell is None else cell.astype(np.float32))
-        self._format.write(self._handle, frames, self.topology, self._n_frames)
+        try:
+            if self._handle is None:
+                self._open(xyz_nm)
+            self._format.write(self._handle, frames, self.topology, self._n_frames)
+        except WRITE_ERRORS as exc:
+            raise _write_failed(self.path, exc) from None
         self._n_frames += 1
 
     def flush(self):
-        """Hand written frames to the operating system and force them to disk."""
+        """Hand written frames to the operating system and force them to disk.
+
+        Raises
+        ------
+        beadsim.errors.OutputError
+            The data could not be written (disk full, ...).
+        """
         if self._handle is not None:
-            self._format.flush_handle(self._handle)
-            fsync_path(self.path)
+            try:
+                self._format.flush_handle(self._handle)
+                fsync_path(self.path)
+            except WRITE_ERRORS as exc:
+                raise _write_failed(self.path, exc) from None
 
     def close(self):
-        """Flush and close the file; calling it again does nothing."""
+        """Flush and close the file; calling it again does nothing.
+
+        The file is closed even when the final flush fails; the failure is then
+        raised as :class:`~beadsim.errors.OutputError`.
+        """
         if self._handle is not None:
-            self.flush()
-            self._handle.close()
-            self._handle = None
-            fsync_path(self.path)
+            handle, self._handle = self._handle, None
+            try:
+                self._format.flush_handle(handle)
+                handle.close()
+                fsync_path(self.path)
+            except WRITE_ERRORS as exc:
+                raise _write_failed(self.path, exc) from None
 
     def __enter__(self):
         return self
@@ -467,9 +491,9 @@ def truncate_trajectory(path, n_frames, topology=None):
 
     Notes
     -----
-    HDF5 files are truncated in place (every per-frame array is cut with
-    pytables). DCD, XTC and PDB files are rewritten: the kept frames go to a
-    temporary file that atomically replaces the original.
+    The file is rewritten: the kept frames go to a temporary file that
+    atomically replaces the original, so a crash during truncation leaves the
+    old file.
     """
     if isinstance(n_frames, bool) or not isinstance(n_frames, (int, np.integer)) or n_frames < 0:
         raise InputError(f"n_frames: expected an integer >= 0, got {n_frames!r}")
@@ -477,8 +501,9 @@ def truncate_trajectory(path, n_frames, topology=None):
     fmt = _format_for(name)
     if not os.path.exists(name):
         raise InputError(f"{name}: trajectory to truncate does not exist")
-    if fmt.suffix == ".pdb" and topology is None and os.path.getsize(name) > 0:
-        topology = mdtraj.load_topology(name)
+    if fmt.stores_topology and topology is None and os.path.getsize(name) > 0:
+        with refusing_pickles(name):
+            topology = mdtraj.load_topology(name)
     fmt.truncate(name, int(n_frames), topology)
 
 
@@ -517,6 +542,7 @@ def load_trajectory(path):
     """
     name = os.fspath(path)
     fmt = _format_for(name)
-    if fmt.stores_topology:
-        return mdtraj.load(name)
-    return mdtraj.load(name, top=topology_path(name))
+    with refusing_pickles(name):
+        if fmt.stores_topology:
+            return mdtraj.load(name)
+        return mdtraj.load(name, top=topology_path(name))

@@ -728,7 +728,7 @@ def analyze_ladder(out, ladder, model, cpu_seconds=None, n_grid=101, n_bootstrap
             row[f"{name}_error"] = s.error if s.error is not None else float("nan")
             if name == "rg2":
                 row["n_independent"] = s.n_independent if s.n_independent is not None else float("nan")
-                row["independent_per_cpu_second"] = row["n_independent"] / cpu_seconds if cpu_seconds else None
+                row.update(_rate(x, ladder, cpu_seconds, int(table["step"].max()) if len(table) else 0))
                 row["note"] = s.reason or ""
         rungs.append(row)
     result = {"rungs": rungs}
@@ -751,6 +751,16 @@ def analyze_ladder(out, ladder, model, cpu_seconds=None, n_grid=101, n_bootstrap
                         (peak.note,) if peak.note else ())
     result["figures"] = figures.reweighted_figure(curves, out / FIGURE_STEM, rungs=rungs, peak=estimate)
     return result
+
+
+def _rate(rg2, ladder, cpu_seconds, steps):
+    """Independent Rg^2 samples of one rung per CPU-second of the whole ladder (all replicas' time)."""
+    from ..analysis.efficiency import independent_samples_rate
+
+    if not cpu_seconds or not steps:
+        return {"independent_per_cpu_second": None}
+    rate = independent_samples_rate(rg2, ladder["sample_interval"], steps / cpu_seconds)
+    return {"independent_per_cpu_second": rate["per_cpu_second"], "rate_is_lower_bound": rate["lower_bound"]}
 
 
 def temper(ladder_path, out, *, workers=None, cluster=None, progress=True):
