@@ -709,7 +709,7 @@ def run_intended(ctx, timestep, n_equilibration, n_production, frame_interval):
     folder : Path
     settings : dict
     result : dict
-        From :func:`beadsim.studies.sweep.analyze_point`.
+        From :func:`beadsim.studies.sweep.analyze_point`, plus ``steps_per_second`` of the run.
     """
     from ..runner import run
     from .sweep import analyze_point
@@ -720,8 +720,10 @@ def run_intended(ctx, timestep, n_equilibration, n_production, frame_interval):
                        table_interval=max(int(frame_interval) // 5, 1),
                        checkpoint_interval=int(n_equilibration + n_production))
     folder = ctx.out / "runs" / "intended_condition"
-    run(s, folder, overwrite=True, progress=False)
-    return folder, s, analyze_point(folder, s)
+    summary = run(s, folder, overwrite=True, progress=False)
+    result = analyze_point(folder, s)
+    result["steps_per_second"] = summary["steps_this_session"] / summary["wall_seconds"]
+    return folder, s, result
 
 
 def classify_quality(nu, error):
@@ -1022,7 +1024,7 @@ def vet(path, out, *, budget_minutes=None, fast=False, overwrite=False, stages=N
 
     plan, settings = read_plan(path)
     budget = positive(budget_minutes if budget_minutes is not None else
-                      (FAST_BUDGET_MINUTES if fast else DEFAULT_BUDGET_MINUTES), "budget (minutes)")
+                      (FAST_BUDGET_MINUTES if fast else DEFAULT_BUDGET_MINUTES), "--budget (minutes)")
     stages = set(STAGES if stages is None else stages)
     unknown = stages - set(STAGES)
     if unknown:
@@ -1052,18 +1054,24 @@ def vet(path, out, *, budget_minutes=None, fast=False, overwrite=False, stages=N
         dt_run = ts["suggested"] or TIMESTEP_LADDER[0]
         ctx.numbers["dynamics_timestep_note"] = (f"the model's timestep failed the stability check; runs use the "
                                                  f"suggested {dt_run:g} tau")
-    steps_per_second = speed
     if "solvent" in stages:
         share = 0.25 if "theta" in stages else 0.6
-        n_prod = int(min(max(share * ctx.remaining() * steps_per_second, 100_000), 5_000_000) // 10_000 * 10_000)
-        folder, s, result = run_intended(ctx, dt_run, n_prod // 5, n_prod, max(n_prod // 800, 100))
-        positions = load_positions(folder, s)
-        verdicts += check_solvent(ctx, s, result, positions)
-        verdicts += check_structure(ctx, s, positions)
+        n_prod = int(min(max(share * ctx.remaining() * speed, 100_000), 5_000_000) // 10_000 * 10_000)
+        try:
+            folder, s, result = run_intended(ctx, dt_run, n_prod // 5, n_prod, max(n_prod // 800, 100))
+        except InstabilityError as exc:
+            verdicts.append(Verdict("solvent_quality", "solvent quality at the model's temperature", "fail", None,
+                                    None, "", "the sampling run completes", "exact",
+                                    f"The thermostatted run at timestep {dt_run:g} tau broke down: {exc}"))
+        else:
+            speed = result["steps_per_second"]  # measured later, under the machine's current load
+            positions = load_positions(folder, s)
+            verdicts += check_solvent(ctx, s, result, positions)
+            verdicts += check_structure(ctx, s, positions)
     if "production" in stages:
         verdicts += check_production(ctx, dt_run)
     if "theta" in stages:
-        verdicts += check_theta(ctx, dt_run, 0.9 * ctx.remaining(), steps_per_second)
+        verdicts += check_theta(ctx, dt_run, 0.9 * ctx.remaining(), speed)
     report = {
         "model": plan["model"], "plan": {k: v for k, v in plan.items() if not k.endswith("_data")},
         "fast": fast, "budget_minutes": budget, "stages": sorted(stages),
