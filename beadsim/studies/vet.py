@@ -70,6 +70,8 @@ VET_SCHEMA = {
                            "temperatures of the theta sweep (default: 0.6 to 1.6 times the model's)"),
 }
 
+#: Optional stages of the battery (the numerical checks always run).
+STAGES = ("solvent", "theta", "production")
 FAST_BUDGET_MINUTES = 4.0
 DEFAULT_BUDGET_MINUTES = 30.0
 
@@ -1020,6 +1022,7 @@ def vet(path, out, *, budget_minutes=None, fast=False, overwrite=False, stages=N
         The report (also in ``out/vet_report.json``): ``verdicts``, ``problems`` (keys of failed verdicts),
         ``numbers``, ``figures`` and the run's context.
     """
+    from ..bench import machine_description
     from .vet_report import REPORT_HTML, REPORT_JSON, draw_figures, write_report
 
     plan, settings = read_plan(path)
@@ -1039,6 +1042,7 @@ def vet(path, out, *, budget_minutes=None, fast=False, overwrite=False, stages=N
         raise InputError(f"{out}: cannot create the output folder ({exc.strerror or exc}); choose another --out") \
             from None
     ctx = VetContext(settings=settings, plan=plan, out=out, fast=fast, budget_seconds=budget * 60.0)
+    machine = {"description": machine_description()}  # load average at the start
     verdicts = []
     chain = single_chain_settings(settings)
     sim, speed = equilibrated_chain(chain, 10_000 if fast else 40_000)
@@ -1076,7 +1080,8 @@ def vet(path, out, *, budget_minutes=None, fast=False, overwrite=False, stages=N
         "model": plan["model"], "plan": {k: v for k, v in plan.items() if not k.endswith("_data")},
         "fast": fast, "budget_minutes": budget, "stages": sorted(stages),
         "wall_seconds": round(time.perf_counter() - ctx.started, 1),
-        "machine": _machine(), "verdicts": [v.as_dict() for v in verdicts],
+        "machine": {**machine, "load_average_at_end": list(os.getloadavg())},
+        "verdicts": [v.as_dict() for v in verdicts],
         "problems": [v.key for v in verdicts if v.status == "fail"], "numbers": ctx.numbers,
         "model_settings": settings,
     }
@@ -1086,11 +1091,3 @@ def vet(path, out, *, budget_minutes=None, fast=False, overwrite=False, stages=N
     report["html"] = str(out / REPORT_HTML)
     return report
 
-
-#: Optional stages of the battery (the numerical checks always run).
-STAGES = ("solvent", "theta", "production")
-
-
-def _machine():
-    from ..bench import machine_description
-    return {"description": machine_description(), "load_average_at_end": list(os.getloadavg())}

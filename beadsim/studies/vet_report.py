@@ -255,7 +255,8 @@ def render_html(report):
              f"<h1>Model vetting report: {_esc(Path(report['model']).name)}</h1>",
              (f"<p class='byline'>beadsim vet{' --fast' if report['fast'] else ''}, budget {report['budget_minutes']:g} "
              f"min, {report['wall_seconds']:g} s on {_esc(machine['cpu_model'])} ({machine['nproc']} cores, load "
-             f"average {machine['load_average_1_5_15'][0]:.2f} at the start)</p>")]
+             f"average {machine['load_average_1_5_15'][0]:.2f} at the start, "
+             f"{report['machine']['load_average_at_end'][0]:.2f} at the end)</p>")]
     if problems:
         parts.append("<div class='outcome bad'><strong>Problems found: " + str(len(problems)) + "</strong><ul>"
                      + "".join(f"<li>{_esc(v['title'])}: {_esc(v['message'])}</li>" for v in problems)
