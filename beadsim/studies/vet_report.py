@@ -143,7 +143,7 @@ def _distribution_figure(d, kind, path):
     ax.plot(d["target_x"], d["target_p"], color="C3", lw=1.2, label="target")
     lo, hi = edges[0], edges[-1]
     pad = 0.3 * (hi - lo)
-    ax.set_xlim(lo - pad, hi + pad)
+    ax.set_xlim(max(lo - pad, d["target_x"][0]), min(hi + pad, d["target_x"][-1]))
     ax.set_xlabel("bond length [sigma]" if kind == "bond" else "bead angle [degrees, 180 = straight]")
     ax.set_ylabel("probability density")
     ax.legend(fontsize=8)
@@ -213,12 +213,20 @@ SECTIONS = (
 )
 
 
+def _exactness(v):
+    """Say so when a pass/fail number carries no sampling error (computed from the potentials or a fixed scan)."""
+    if v["status"] in ("pass", "fail") and v["error"] is None:
+        return "<span class='unit'>deterministic: no sampling error</span>"
+    return ""
+
+
 def _verdict_rows(verdicts):
     rows = [("<table><tr><th>check</th><th>result</th><th>value</th><th>threshold</th><th>basis</th>"
             "<th>what it means</th></tr>")]
     for v in verdicts:
         rows.append(f"<tr><td>{_esc(v['title'])}</td><td class='st st-{v['status']}'>{_esc(v['status'])}</td>"
-                    f"<td class='num'>{_number(v['value'], v['error'], v['unit'])}</td><td>{_esc(v['threshold'])}</td>"
+                    f"<td class='num'>{_number(v['value'], v['error'], v['unit'])}{_exactness(v)}</td>"
+                    f"<td>{_esc(v['threshold'])}</td>"
                     f"<td class='small'>{_esc(v['basis'])}</td><td>{_esc(v['message'])}</td></tr>")
     rows.append("</table>")
     return "\n".join(rows)
