@@ -25,6 +25,8 @@ import pandas as pd
 
 from .. import plots
 from .._validate import positive_int
+from ..config import load_toml
+from ..engine.hybrid import DYNAMICS_CAUTION
 from ..errors import AnalysisError, InputError
 from . import bonds, dynamics, internal, scaling, scattering, size, stats
 from .trajectory import find_chains, is_periodic, load_trajectory, trajectory_positions
@@ -198,7 +200,10 @@ def analyze_file(traj_path, top_path=None, out_dir="analysis_output", frames=Non
     except AnalysisError as exc:
         skipped["nu_form_factor"] = f"{exc} (window 3/Rg..1/<b> too narrow for these chains)"
 
-    _dynamics(x[t0:], times[t0:], chains, linear, fits, skipped, out, unit)
+    if _from_hybrid_run(traj_path):
+        skipped["dynamics"] = f"not computed: {DYNAMICS_CAUTION}"
+    else:
+        _dynamics(x[t0:], times[t0:], chains, linear, fits, skipped, out, unit)
     _structure_factor(traj, x, t0, mean_bond, length_scale, skipped, out, unit, figure_format)
 
     summary = {"file": os.fspath(traj_path), "topology": None if top_path is None else os.fspath(top_path),
@@ -230,6 +235,17 @@ def _bonds(x, chains, t0, quantities, fits, skipped, out, unit, figure_format):
     except AnalysisError as exc:
         skipped["persistence_length"] = str(exc)
     return mean_bond
+
+
+def _from_hybrid_run(traj_path):
+    """True if the trajectory lies in a ``beadsim run`` folder whose input asks for hybrid sampling."""
+    resolved = os.path.join(os.path.dirname(os.path.abspath(traj_path)), "input.toml")
+    if not os.path.exists(resolved):
+        return False
+    try:
+        return load_toml(resolved).get("sampling", {}).get("method") == "hybrid"
+    except InputError:
+        return False
 
 
 def _dynamics(x, times, chains, linear, fits, skipped, out, unit):
