@@ -123,16 +123,16 @@ def _split(sim, rebuilds_per_step, repeats):
     """Seconds per step in forces, list rebuilds (at the observed rate) and the update, on a copy of the state."""
     s, nl = sim.system, sim.neighbors
     pos, vel, force, ref = s.positions.copy(), s.velocities.copy(), sim.forces.copy(), nl.ref.copy()
-    start, nbr = nl.start.copy(), nl.nbr.copy()
+    nlist = tuple(a.copy() for a in nl.arrays)
     energies, info = np.zeros(4), np.zeros(2, dtype=np.int64)
     integ = sim.integrator
     coeffs, noise = integ._coefficients(s.masses)
     inv_mass = 1.0 / s.masses
     args = (sim.box_lengths, s.box.periodic)
     with threads_for(s.n_beads):
-        t_force = _best_of(lambda: total_forces(pos, *args, s.types, start, nbr, sim.compiled.arrays, force,
-                                                energies, info), repeats)
-        t_list = _best_of(lambda: refresh_list(pos, *args, nl.r_list, nl.excl_start, nl.excl, start, nbr, ref),
+        t_force = _best_of(lambda: total_forces(pos, *args, nlist, sim.compiled.arrays, force, energies, info),
+                           repeats)
+        t_list = _best_of(lambda: refresh_list(pos, *args, nl.r_list, nl.excl_start, nl.excl, s.types, nlist, ref),
                           repeats) if nl.active else 0.0
         t_move = _best_of(lambda: (move_beads(BAOAB, np.uint64(1), 0, TIMESTEP, coeffs, pos, vel, force, inv_mass,
                                               noise, ref, True), half_kick(TIMESTEP, vel, force, inv_mass)),

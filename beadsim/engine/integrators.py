@@ -67,11 +67,11 @@ class Integrator:
         coeffs, noise = self._coefficients(sim.system.masses)
         nl = sim.neighbors
         with threads_for(sim.system.n_beads):
-            nl.nbr = advance(self.scheme, n_steps, sim.step_count, np.uint64(sim.noise_seed), self.timestep,
+            nl.arrays = advance(self.scheme, n_steps, sim.step_count, np.uint64(sim.noise_seed), self.timestep,
                              coeffs, sim.system.positions, sim.system.velocities, sim.forces,
                              1.0 / sim.system.masses, noise, sim.box_lengths, sim.system.box.periodic,
                              sim.system.types, sim.compiled.arrays, nl.r_list, nl.skin, nl.excl_start, nl.excl,
-                             nl.start, nl.nbr, nl.ref, sim.raw_energies, sim.info, counters)
+                             nl.arrays, nl.ref, sim.raw_energies, sim.info, counters)
 
     def __repr__(self):
         return (f"{type(self).__name__}(timestep={self.timestep!r}, temperature={self.temperature!r}, "

@@ -49,7 +49,7 @@ class Simulation:
         self.noise_seed = self.seed % 2 ** 64
         self.compiled = forcefield.compile(system)
         self.box_lengths = system.box.kernel_lengths()
-        self.neighbors = NeighborList(system.n_beads, self.compiled.cutoff, positive(skin, "skin"),
+        self.neighbors = NeighborList(system.types, self.compiled.cutoff, positive(skin, "skin"),
                                       self.compiled.excl_start, self.compiled.excl, system.box.lengths)
         self.forces = np.zeros((system.n_beads, 3))
         self.raw_energies = np.zeros(4)
@@ -75,9 +75,8 @@ class Simulation:
             between them has no direction, so no minimiser can separate them.
         """
         try:
-            total_forces(self.system.positions, self.box_lengths, self.system.box.periodic, self.system.types,
-                         self.neighbors.start, self.neighbors.nbr, self.compiled.arrays, self.forces,
-                         self.raw_energies, self.info)
+            total_forces(self.system.positions, self.box_lengths, self.system.box.periodic, self.neighbors.arrays,
+                         self.compiled.arrays, self.forces, self.raw_energies, self.info)
         except ZeroDivisionError:  # the compiled kernel divides by r^2 (or r) of a pair or bond
             raise MinimizationError(_coincident_message(self.system)) from None
 

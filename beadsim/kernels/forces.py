@@ -36,8 +36,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from .chunks import chunk_bounds, chunk_count
-from .neighbors import minimum_image, nearest_image
+from .neighbors import gather_rows, minimum_image, nearest_image
 
 PAIR_NONE, PAIR_LJ, PAIR_COS2, PAIR_TABLE = 0, 1, 2, 3
 BOND_FENE, BOND_HARMONIC, BOND_TABLE = 0, 1, 2
@@ -104,70 +103,106 @@ def pair_energy_force(kind, p, r2, tables):
 
 
 @njit(cache=True, parallel=True)
-def pair_forces(pos, box, periodic, types, start, nbr, kinds, params, tables, force, info):
-    """Set ``force`` to the non-bonded forces over a full Verlet list; return (energy, virial, coincident).
+def pair_forces(pos, box, periodic, nlist, kinds, params, tables, force, info):
+    """Set ``force`` to the non-bonded forces over a half Verlet list; return (energy, virial, coincident).
 
-    Each bead sums the forces of its own row, so beads are independent and run
-    in parallel; energy and virial are summed per fixed block of beads and the
-    blocks added in order (:mod:`beadsim.kernels.chunks`), so every result is
-    the same on any number of threads. Every pair is met twice, hence the
-    halves. The third value tells whether two interacting beads sit at one
-    point (parallel loops do not raise on that division by zero). The virial
-    is sum over pairs of r_ij . f_ij (energy units);
-    pressure follows as (2 K + virial) / (3 V).
+    Positions are first copied into the list's slot order
+    (:mod:`beadsim.kernels.neighbors`), so that partners are read from nearby
+    memory, and each pair is evaluated once, its force added to both beads.
+    Blocks of slots run in phases (:func:`beadsim.kernels.neighbors.colour_blocks`):
+    the blocks of one phase write disjoint slots and run in parallel, so every
+    force, and the energy and virial summed per block in block order, is the
+    same on any number of threads. The third value tells whether two
+    interacting beads sit at one point (parallel loops do not raise on that
+    division by zero). The virial is sum over pairs of r_ij . f_ij (energy
+    units); pressure follows as (2 K + virial) / (3 V).
+
+    Parameters
+    ----------
+    pos : float64 (n, 3)
+        Positions in the user's order, sigma.
+    box : float64 (3,)
+    periodic : bool
+    nlist : tuple
+        The list tuple kept by :func:`beadsim.kernels.integrate.refresh_list`.
+    kinds : int64 (n_types, n_types)
+    params : float64 (n_types, n_types, N_PAIR_PARAMS)
+    tables : float64 (n_tables, n_points, 2)
+    force : float64 (n, 3)
+        Output, user's order, epsilon/sigma.
+    info : int64 (2,)
+        Status, set to ``OUTSIDE_TABLE`` if a table pair fell below its grid.
     """
+    order, start, nbr, sorted_pos, sorted_force, sorted_types, block_start, schedule, phase_start, layout = nlist
+    gather_rows(pos, order, sorted_pos)
     n = pos.shape[0]
+    n_blocks = layout[0]
     inv_box = 1.0 / box
-    n_chunks = chunk_count(n)
-    part = np.zeros((n_chunks, 2))
-    outside = np.full(n_chunks, -1)
-    coincident = np.zeros(n_chunks, dtype=np.bool_)
-    for c in prange(n_chunks):
-        lo, hi = chunk_bounds(n, n_chunks, c)
-        energy = 0.0
-        virial = 0.0
-        for i in range(lo, hi):
-            ti = types[i]
-            xi = pos[i, 0]
-            yi = pos[i, 1]
-            zi = pos[i, 2]
-            fx = 0.0
-            fy = 0.0
-            fz = 0.0
-            for k in range(start[i], start[i + 1]):
-                j = nbr[k]
-                tj = types[j]
-                kind = kinds[ti, tj]
-                if kind == PAIR_NONE:
-                    continue
-                dx = nearest_image(pos[j, 0] - xi, box[0], inv_box[0], periodic)
-                dy = nearest_image(pos[j, 1] - yi, box[1], inv_box[1], periodic)
-                dz = nearest_image(pos[j, 2] - zi, box[2], inv_box[2], periodic)
-                r2 = dx * dx + dy * dy + dz * dz
-                coincident[c] |= r2 == 0.0
-                u, f_r, inside = pair_energy_force(kind, params[ti, tj], r2, tables)
-                if not inside:
-                    outside[c] = i
-                energy += u
-                virial += f_r * r2
-                # d points from i to j: the force on i is -f_r * d
-                fx -= f_r * dx
-                fy -= f_r * dy
-                fz -= f_r * dz
-            force[i, 0] = fx
-            force[i, 1] = fy
-            force[i, 2] = fz
-        part[c, 0] = energy
-        part[c, 1] = virial
+    part = np.zeros((n_blocks, 2))
+    outside = np.full(n_blocks, -1)
+    coincident = np.zeros(n_blocks, dtype=np.bool_)
+    sorted_force[:, :] = 0.0
+    for phase in range(layout[1]):
+        for m in prange(phase_start[phase], phase_start[phase + 1]):
+            c = schedule[m]
+            lo = block_start[c]
+            hi = block_start[c + 1]
+            energy = 0.0
+            virial = 0.0
+            close = False
+            for s in range(lo, hi):
+                ti = sorted_types[s]
+                kind_row = kinds[ti]
+                param_rows = params[ti]
+                xi = sorted_pos[s, 0]
+                yi = sorted_pos[s, 1]
+                zi = sorted_pos[s, 2]
+                fx = 0.0
+                fy = 0.0
+                fz = 0.0
+                for k in range(start[s], start[s + 1]):
+                    t = nbr[k]
+                    tj = sorted_types[t]
+                    kind = kind_row[tj]
+                    if kind == PAIR_NONE:
+                        continue
+                    dx = nearest_image(sorted_pos[t, 0] - xi, box[0], inv_box[0], periodic)
+                    dy = nearest_image(sorted_pos[t, 1] - yi, box[1], inv_box[1], periodic)
+                    dz = nearest_image(sorted_pos[t, 2] - zi, box[2], inv_box[2], periodic)
+                    r2 = dx * dx + dy * dy + dz * dz
+                    close |= r2 == 0.0
+                    u, f_r, inside = pair_energy_force(kind, param_rows[tj], r2, tables)
+                    if not inside:
+                        outside[c] = order[s]
+                    energy += u
+                    virial += f_r * r2
+                    # d points from i to j: the force on i is -f_r * d, on j +f_r * d
+                    fx -= f_r * dx
+                    fy -= f_r * dy
+                    fz -= f_r * dz
+                    sorted_force[t, 0] += f_r * dx
+                    sorted_force[t, 1] += f_r * dy
+                    sorted_force[t, 2] += f_r * dz
+                sorted_force[s, 0] += fx
+                sorted_force[s, 1] += fy
+                sorted_force[s, 2] += fz
+            part[c, 0] = energy
+            part[c, 1] = virial
+            coincident[c] = close
+    for s in prange(n):
+        i = order[s]
+        force[i, 0] = sorted_force[s, 0]
+        force[i, 1] = sorted_force[s, 1]
+        force[i, 2] = sorted_force[s, 2]
     energy = 0.0
     virial = 0.0
-    for c in range(n_chunks):
+    for c in range(n_blocks):
         energy += part[c, 0]
         virial += part[c, 1]
         if outside[c] >= 0 and info[0] == OK:
             info[0] = OUTSIDE_TABLE
             info[1] = -1 - outside[c]
-    return 0.5 * energy, 0.5 * virial, coincident.any()
+    return energy, virial, coincident.any()
 
 
 @njit(cache=True)
@@ -255,7 +290,7 @@ def bending_forces(pos, box, periodic, angles, angle_type, params, force):
 
 
 @njit(cache=True)
-def total_forces(pos, box, periodic, types, start, nbr, ff, force, energies, info):
+def total_forces(pos, box, periodic, nlist, ff, force, energies, info):
     """Overwrite ``force`` with all forces; write energies and status.
 
     Raises ZeroDivisionError if two interacting beads sit at one point, as
@@ -263,6 +298,13 @@ def total_forces(pos, box, periodic, types, start, nbr, ff, force, energies, inf
 
     Parameters
     ----------
+    pos : float64 (n, 3)
+        Positions, sigma, in the user's order.
+    box : float64 (3,)
+        Box edges, sigma (ignored when not periodic).
+    periodic : bool
+    nlist : tuple
+        The Verlet list, as for :func:`pair_forces`.
     ff : tuple
         ``(pair_kinds, pair_params, tables, bonds, bond_type, bond_kinds,
         bond_params, angles, angle_type, angle_params)`` as built by
@@ -275,8 +317,7 @@ def total_forces(pos, box, periodic, types, start, nbr, ff, force, energies, inf
     pair_kinds, pair_params, tables, bonds, bond_type, bond_kinds, bond_params, angles, angle_type, angle_params = ff
     info[0] = OK
     info[1] = 0
-    e_pair, w_pair, coincident = pair_forces(pos, box, periodic, types, start, nbr, pair_kinds, pair_params,
-                                             tables, force, info)
+    e_pair, w_pair, coincident = pair_forces(pos, box, periodic, nlist, pair_kinds, pair_params, tables, force, info)
     if coincident:
         raise ZeroDivisionError("two interacting beads at the same position")
     e_bond, w_bond = bond_forces(pos, box, periodic, bonds, bond_type, bond_kinds, bond_params, tables, force, info)

@@ -24,21 +24,48 @@ from numba import njit, prange
 
 from .forces import OK, total_forces
 from .chunks import chunk_bounds, chunk_count
-from .neighbors import build_full_list
+from .neighbors import build_list, colour_blocks
 from .random import fill_normal
 
 BAOAB, VERLET, BROWNIAN = 0, 1, 2
 
 
 @njit(cache=True)
-def refresh_list(pos, box, periodic, r_list, excl_start, excl, start, nbr, ref):
-    """Rebuild the Verlet list, growing ``nbr`` if needed; return the (possibly new) ``nbr``."""
-    found = build_full_list(pos, box, periodic, r_list, excl_start, excl, start, nbr)
-    if found > nbr.shape[0]:
-        nbr = np.empty(int(found * 1.25) + 64, dtype=np.int32)
-        build_full_list(pos, box, periodic, r_list, excl_start, excl, start, nbr)
+def refresh_list(pos, box, periodic, r_list, excl_start, excl, types, nlist, ref):
+    """Rebuild the half Verlet list and its block phases, growing the neighbour array if needed.
+
+    Parameters
+    ----------
+    pos, box, periodic, r_list, excl_start, excl, types
+        As for :func:`beadsim.kernels.neighbors.build_list`.
+    nlist : tuple
+        ``(order, start, nbr, sorted_pos, sorted_force, sorted_types,
+        block_start, schedule, phase_start, layout)``, filled in place:
+        ``order`` int64 (n,), ``start`` int64 (n+1,), ``nbr`` int32,
+        ``sorted_pos`` and ``sorted_force`` float64 (n, 3) scratch,
+        ``sorted_types`` int64 (n,), ``block_start`` int64 (MAX_BLOCKS + 1,),
+        ``schedule`` int64 (MAX_BLOCKS,), ``phase_start`` int64
+        (MAX_BLOCKS + 1,), ``layout`` int64 (2,) = (blocks, phases).
+    ref : float64 (n, 3)
+        Output: positions at this build, sigma.
+
+    Returns
+    -------
+    tuple
+        ``nlist``, with a new ``nbr`` if it had to grow.
+    """
+    order, start, nbr, sorted_pos, sorted_force, sorted_types, block_start, schedule, phase_start, layout = nlist
+    n_chunks = chunk_count(pos.shape[0])
+    need, n_blocks = build_list(pos, box, periodic, r_list, excl_start, excl, types, order, start, nbr,
+                                sorted_pos, sorted_types, block_start)
+    if need > nbr.shape[0] // n_chunks:
+        nbr = np.empty(n_chunks * (int(need * 1.25) + 16), dtype=np.int32)
+        build_list(pos, box, periodic, r_list, excl_start, excl, types, order, start, nbr, sorted_pos,
+                   sorted_types, block_start)
+    layout[0] = n_blocks
+    layout[1] = colour_blocks(start, nbr, block_start, n_blocks, schedule, phase_start)
     ref[:, :] = pos
-    return nbr
+    return order, start, nbr, sorted_pos, sorted_force, sorted_types, block_start, schedule, phase_start, layout
 
 
 @njit(cache=True, parallel=True)
@@ -99,7 +126,7 @@ def half_kick(dt, vel, force, inv_mass):
 
 @njit(cache=True)
 def advance(scheme, n_steps, step0, seed, dt, coeffs, pos, vel, force, inv_mass, noise_scale,
-            box, periodic, types, ff, r_list, skin, excl_start, excl, start, nbr, ref,
+            box, periodic, types, ff, r_list, skin, excl_start, excl, nlist, ref,
             energies, info, counters):
     """Advance the state by up to ``n_steps`` steps in place.
 
@@ -125,13 +152,16 @@ def advance(scheme, n_steps, step0, seed, dt, coeffs, pos, vel, force, inv_mass,
     noise_scale : float64 (n,)
         Per-bead noise amplitude: BAOAB sqrt((1 - c1^2) kT / m); BROWNIAN
         sqrt(2 kT dt / (m gamma)).
-    box, periodic, types, ff
+    box, periodic, ff
         As for :func:`beadsim.kernels.forces.total_forces`.
     r_list, skin : float
         Verlet list radius (cutoff + skin) and skin; the list is rebuilt when a
         bead has moved more than skin / 2 since the last build.
-    excl_start, excl, start, nbr, ref
-        Exclusions and Verlet list state (``ref`` holds positions at the last build).
+    types : int64 (n,)
+        Bead types.
+    excl_start, excl, nlist, ref
+        Exclusions and Verlet list state, as for :func:`refresh_list` (``ref``
+        holds positions at the last build).
     energies : float64 (4,)
         Output of the last force evaluation.
     info : int64 (2,)
@@ -141,8 +171,8 @@ def advance(scheme, n_steps, step0, seed, dt, coeffs, pos, vel, force, inv_mass,
 
     Returns
     -------
-    nbr : int32 array
-        The neighbour array (a new one if it had to grow).
+    tuple
+        ``nlist``, with a new neighbour array if it had to grow.
     """
     n = pos.shape[0]
     pairs_per_step = (3 * n + 1) // 2
@@ -152,13 +182,13 @@ def advance(scheme, n_steps, step0, seed, dt, coeffs, pos, vel, force, inv_mass,
         moved = move_beads(scheme, seed, (step0 + s) * pairs_per_step, dt, coeffs, pos, vel, force, inv_mass,
                       noise_scale, ref, s > 0 and scheme != BROWNIAN)
         if moved > trigger:
-            nbr = refresh_list(pos, box, periodic, r_list, excl_start, excl, start, nbr, ref)
+            nlist = refresh_list(pos, box, periodic, r_list, excl_start, excl, types, nlist, ref)
             counters[1] += 1
-        total_forces(pos, box, periodic, types, start, nbr, ff, force, energies, info)
+        total_forces(pos, box, periodic, nlist, ff, force, energies, info)
         counters[0] += 1
         done += 1
         if info[0] != OK:
             break
     if done > 0 and scheme != BROWNIAN:
         half_kick(dt, vel, force, inv_mass)
-    return nbr
+    return nlist

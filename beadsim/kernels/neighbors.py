@@ -1,4 +1,4 @@
-"""Cell-list construction of full Verlet lists, for open and periodic boxes.
+"""Cell-list construction of Verlet lists, for open and periodic boxes.
 
 Beads are binned into cubic cells at least ``r_list`` wide. In a periodic box the
 cells tile the box and are indexed directly. In an open box the cell coordinates
@@ -7,9 +7,15 @@ VMV 2003): memory stays O(n) however swollen the chain, and a hash collision onl
 adds candidates that the distance test then rejects. Neighbour buckets of a cell
 are de-duplicated so small periodic grids and collisions never double-count.
 
-The list is "full": every pair is stored under both of its beads, in compressed
-rows (``start[i]:start[i+1]`` indexes ``nbr``), so that forces can be summed
-bead by bead in parallel without two threads ever writing the same bead.
+The list lives in its own numbering: beads sorted by bucket ("slots"), with
+``order[slot]`` the user's index. Rows are compressed (``start[s]:start[s+1]``
+indexes ``nbr``) and hold partner slots, so the force loop reads positions
+copied into slot order (:func:`gather_rows`) from nearby memory, while the
+state itself, and everything written from it, stays in the user's order.
+The list is "half": each pair is stored once, under one of its slots. The
+force loop runs blocks of slots in phases in which no two blocks write one
+slot (:func:`colour_blocks`), so it is parallel and its sums do not depend
+on the thread count.
 """
 
 import math
@@ -18,6 +24,9 @@ import numpy as np
 from numba import njit, prange
 
 from .chunks import chunk_bounds, chunk_count
+
+#: Most blocks the phased half-list force loop uses.
+MAX_BLOCKS = 64
 
 _HASH_X = 73856093
 _HASH_Y = 19349663
@@ -92,6 +101,29 @@ def _is_excluded(i, j, excl_start, excl):
 
 
 @njit(cache=True)
+def cell_stencil(cx, cy, cz, ncell, periodic, n_buckets, near):
+    """Distinct buckets of cell (cx, cy, cz) and its 26 neighbours, in a fixed order.
+
+    Writes them to ``near`` (int64 (27,)) and returns how many there are: fewer
+    than 27 on small periodic grids and on hash collisions.
+    """
+    n_near = 0
+    for ox in range(-1, 2):
+        for oy in range(-1, 2):
+            for oz in range(-1, 2):
+                b = _bucket(cx + ox, cy + oy, cz + oz, ncell, periodic, n_buckets)
+                seen = False
+                for m in range(n_near):
+                    if near[m] == b:
+                        seen = True
+                        break
+                if not seen:
+                    near[n_near] = b
+                    n_near += 1
+    return n_near
+
+
+@njit(cache=True)
 def _bin_beads(pos, box, periodic, r_list):
     """Counting sort of beads by bucket: cell coordinates, layout, bucket offsets and bead order."""
     n = pos.shape[0]
@@ -111,100 +143,219 @@ def _bin_beads(pos, box, periodic, r_list):
     return coords, ncell, n_buckets, offsets, order
 
 
+@njit(cache=True, parallel=True)
+def gather_rows(pos, order, sorted_pos):
+    """``sorted_pos[s] = pos[order[s]]``: positions (float64 (n, 3)) copied into list order."""
+    for s in prange(order.shape[0]):
+        i = order[s]
+        sorted_pos[s, 0] = pos[i, 0]
+        sorted_pos[s, 1] = pos[i, 1]
+        sorted_pos[s, 2] = pos[i, 2]
+
+
 @njit(cache=True)
-def _scan_row(i, pos, box, inv_box, periodic, r2_list, coords, ncell, n_buckets, offsets, order,
-              excl_start, excl, near, nbr, first):
-    """Neighbours of bead ``i`` within the list radius: count them, and store them from ``nbr[first]``
-    unless ``first`` is negative. Candidates come bucket by bucket in a fixed order."""
-    n_near = 0
-    for ox in range(-1, 2):
-        for oy in range(-1, 2):
-            for oz in range(-1, 2):
-                b = _bucket(coords[i, 0] + ox, coords[i, 1] + oy, coords[i, 2] + oz, ncell, periodic, n_buckets)
-                seen = False
-                for m in range(n_near):
-                    if near[m] == b:
-                        seen = True
-                        break
-                if not seen:
-                    near[n_near] = b
-                    n_near += 1
-    has_excl = excl_start[i + 1] > excl_start[i]
-    xi = pos[i, 0]
-    yi = pos[i, 1]
-    zi = pos[i, 2]
-    found = 0
-    for m in range(n_near):
-        b = near[m]
-        for k in range(offsets[b], offsets[b + 1]):
-            j = order[k]
-            if j == i:
-                continue
-            dx = nearest_image(pos[j, 0] - xi, box[0], inv_box[0], periodic)
-            dy = nearest_image(pos[j, 1] - yi, box[1], inv_box[1], periodic)
-            dz = nearest_image(pos[j, 2] - zi, box[2], inv_box[2], periodic)
-            if dx * dx + dy * dy + dz * dz < r2_list and not (has_excl and _is_excluded(i, j, excl_start, excl)):
-                if first >= 0:
-                    nbr[first + found] = j
-                found += 1
-    return found
+def _layer_blocks(n, ncell, periodic, offsets, block_start):
+    """Split the slots into blocks of whole layers of cells for the phased force loop; return their count.
+
+    Slots run through the cells x fastest, so in a periodic box a row reaches
+    forward (round the seam too) by at most one layer of cells. Blocks of
+    whole layers then write only into themselves and the next block: an even
+    number of them needs two phases (:func:`colour_blocks`), and a multiple of
+    four gives each of two threads the same share of each phase. Open boxes
+    hash their cells, so the list has no such order: one block.
+    ``block_start`` (int64 (>= MAX_BLOCKS + 1,)) receives the block bounds.
+    """
+    layers = ncell[2]
+    blocks = 1
+    if periodic and layers >= 4:
+        blocks = min(MAX_BLOCKS, layers)
+        blocks -= blocks % 4 if blocks >= 8 else blocks % 2
+    per_layer = ncell[0] * ncell[1]
+    for c in range(blocks):
+        block_start[c] = offsets[per_layer * ((c * layers) // blocks)]
+    block_start[0] = 0
+    block_start[blocks] = n
+    return blocks
 
 
 @njit(cache=True, parallel=True)
-def build_full_list(pos, box, periodic, r_list, excl_start, excl, start, nbr):
-    """Fill a full Verlet list of all pairs closer than ``r_list`` (each pair under both beads).
+def build_list(pos, box, periodic, r_list, excl_start, excl, types, order, start, nbr, sorted_pos, sorted_types,
+               block_start):
+    """Build a half Verlet list of all pairs closer than ``r_list``, with beads sorted by cell.
 
-    Bead ``i``'s partners are ``nbr[start[i]:start[i+1]]``, in an order fixed by
-    the positions alone (never by the thread count), so every bead can sum its
-    own force in parallel and reproducibly. Rows are counted in one parallel
-    pass and filled in a second.
+    Beads are renumbered in cell order (``order[s]`` is the user's index of
+    list slot ``s``), so that the partners of a bead, and the beads of one
+    work block, sit close together in memory. Slot ``s``'s partners are the
+    slots ``nbr[start[s]:start[s+1]]``; each pair is stored once, under the
+    slot from which the other lies less than half way round the slot cycle
+    (``0 < (t - s) mod n < n / 2``; the smaller slot on a tie), so that rows
+    only ever reach forward, across the periodic seam too. Rows come in a
+    fixed order set by the positions alone, never by the thread count.
+
+    Each fixed block of slots (:mod:`beadsim.kernels.chunks`) scans its cells
+    once, writing into its own stretch of ``nbr`` (``len(nbr) // blocks``
+    entries); the stretches are then closed up.
 
     Parameters
     ----------
     pos : float64 (n, 3)
-        Positions (unwrapped are fine in periodic boxes).
+        Positions, sigma (unwrapped are fine in periodic boxes).
     box : float64 (3,)
-        Box edge lengths (ignored when not periodic).
+        Box edge lengths, sigma (ignored when not periodic).
     periodic : bool
     r_list : float
-        List radius = cutoff + skin.
+        List radius = cutoff + skin, sigma.
     excl_start, excl : int64 (n+1,), (n_excl,)
-        Compressed rows of excluded partners of each bead (both directions).
+        Compressed rows of excluded partners of each bead (user's indices, both directions).
+    types : int64 (n,)
+        Bead types in the user's order.
+    order : int64 (n,)
+        Output: user's index of each slot.
     start : int64 (n+1,)
-        Output row offsets.
+        Output: row offsets by slot.
     nbr : int32 (capacity,)
-        Output neighbour indices.
+        Output: partner slots.
+    sorted_pos : float64 (n, 3)
+        Output: positions in slot order.
+    sorted_types : int64 (n,)
+        Output: types in slot order.
+    block_start : int64 (MAX_BLOCKS + 1,)
+        Output: slot bounds of the force loop's blocks (:func:`colour_blocks`).
+
+    Returns
+    -------
+    need : int
+        The largest number of entries one block needed. If it exceeds
+        ``len(nbr) // blocks`` the list is incomplete and the caller must retry
+        with a larger ``nbr``.
+    n_blocks : int
+        Number of those blocks.
+    """
+    n = pos.shape[0]
+    coords, ncell, n_buckets, offsets, sorted_order = _bin_beads(pos, box, periodic, r_list)
+    order[:] = sorted_order
+    gather_rows(pos, order, sorted_pos)
+    for s in range(n):
+        sorted_types[s] = types[order[s]]
+    inv_box = 1.0 / box
+    r2_list = r_list * r_list
+    n_chunks = chunk_count(n)
+    capacity = nbr.shape[0] // n_chunks
+    counts = np.zeros(n_chunks, dtype=np.int64)
+    ahead = (n - 1) // 2  # a row keeps partners 1 .. ahead slots further round the cycle (and the tie)
+    for c in prange(n_chunks):
+        lo, hi = chunk_bounds(n, n_chunks, c)
+        near = np.empty(27, dtype=np.int64)
+        n_near = 0
+        base = c * capacity
+        found = 0
+        for s in range(lo, hi):
+            i = order[s]
+            if s == lo or (coords[i, 0] != coords[order[s - 1], 0] or coords[i, 1] != coords[order[s - 1], 1]
+                           or coords[i, 2] != coords[order[s - 1], 2]):
+                n_near = cell_stencil(coords[i, 0], coords[i, 1], coords[i, 2], ncell, periodic, n_buckets, near)
+            start[s] = found
+            has_excl = excl_start[i + 1] > excl_start[i]
+            xi = sorted_pos[s, 0]
+            yi = sorted_pos[s, 1]
+            zi = sorted_pos[s, 2]
+            for m in range(n_near):
+                b = near[m]
+                for t in range(offsets[b], offsets[b + 1]):
+                    gap = t - s if t >= s else t - s + n
+                    if gap == 0 or 2 * gap > n or (2 * gap == n and t < s):
+                        continue
+                    dx = nearest_image(sorted_pos[t, 0] - xi, box[0], inv_box[0], periodic)
+                    dy = nearest_image(sorted_pos[t, 1] - yi, box[1], inv_box[1], periodic)
+                    dz = nearest_image(sorted_pos[t, 2] - zi, box[2], inv_box[2], periodic)
+                    if dx * dx + dy * dy + dz * dz < r2_list and not (
+                            has_excl and _is_excluded(i, order[t], excl_start, excl)):
+                        if found < capacity:
+                            nbr[base + found] = t
+                        found += 1
+        counts[c] = found
+    need = counts.max()
+    n_blocks = _layer_blocks(n, ncell, periodic, offsets, block_start)
+    if need > capacity:
+        return need, n_blocks
+    # close up the blocks' stretches (each moves towards the front: a forward copy is safe)
+    total = 0
+    for c in range(n_chunks):
+        lo, hi = chunk_bounds(n, n_chunks, c)
+        for s in range(lo, hi):
+            start[s] += total
+        base = c * capacity
+        for k in range(counts[c]):
+            nbr[total + k] = nbr[base + k]
+        total += counts[c]
+    start[n] = total
+    return need, n_blocks
+
+
+@njit(cache=True)
+def colour_blocks(start, nbr, block_start, n_blocks, schedule, phase_start):
+    """Order ``n_blocks`` blocks of slots into phases in which no two blocks write the same block.
+
+    With a half list a block adds forces to its own slots and to its partners'
+    slots. Blocks are coloured greedily in index order, so that two blocks of
+    one colour never write into a common block; they can then run at the same
+    time, and every slot receives its contributions in one fixed order
+    whatever the thread count.
+
+    Parameters
+    ----------
+    start, nbr : int64 (n+1,), int32
+        Half list rows, as from :func:`build_list`.
+    block_start : int64 (>= n_blocks + 1,)
+        Slot bounds of the blocks.
+    n_blocks : int
+    schedule : int64 (>= n_blocks,)
+        Output: blocks ordered by colour, then index.
+    phase_start : int64 (>= n_blocks + 1,)
+        Output: ``schedule[phase_start[p]:phase_start[p+1]]`` is phase ``p``.
 
     Returns
     -------
     int
-        Number of entries (twice the number of pairs). If larger than
-        ``len(nbr)``, ``nbr`` was left unfilled and the caller must retry with
-        a larger array.
+        Number of phases (colours).
     """
-    n = pos.shape[0]
-    coords, ncell, n_buckets, offsets, order = _bin_beads(pos, box, periodic, r_list)
-    inv_box = 1.0 / box
-    r2_list = r_list * r_list
-    n_chunks = chunk_count(n)
-    for c in prange(n_chunks):
-        lo, hi = chunk_bounds(n, n_chunks, c)
-        near = np.empty(27, dtype=np.int64)
-        for i in range(lo, hi):
-            start[i + 1] = _scan_row(i, pos, box, inv_box, periodic, r2_list, coords, ncell, n_buckets, offsets,
-                                     order, excl_start, excl, near, nbr, -1)
-    start[0] = 0
-    for i in range(n):
-        start[i + 1] += start[i]
-    found = start[n]
-    if found <= nbr.shape[0]:
-        for c in prange(n_chunks):
-            lo, hi = chunk_bounds(n, n_chunks, c)
-            near = np.empty(27, dtype=np.int64)
-            for i in range(lo, hi):
-                _scan_row(i, pos, box, inv_box, periodic, r2_list, coords, ncell, n_buckets, offsets, order,
-                          excl_start, excl, near, nbr, start[i])
-    return found
+    n = start.shape[0] - 1
+    writes = np.zeros((n_blocks, n_blocks), dtype=np.bool_)
+    block_of = np.empty(n, dtype=np.int64)
+    for c in range(n_blocks):
+        block_of[block_start[c]:block_start[c + 1]] = c
+    for c in range(n_blocks):
+        writes[c, c] = True
+        for k in range(start[block_start[c]], start[block_start[c + 1]]):
+            writes[c, block_of[nbr[k]]] = True
+    colour = np.full(n_blocks, -1)
+    n_colours = 0
+    for c in range(n_blocks):
+        k = 0
+        while True:
+            clash = False
+            for d in range(c):
+                if colour[d] == k:
+                    for b in range(n_blocks):
+                        if writes[c, b] and writes[d, b]:
+                            clash = True
+                            break
+                    if clash:
+                        break
+            if not clash:
+                break
+            k += 1
+        colour[c] = k
+        n_colours = max(n_colours, k + 1)
+    m = 0
+    for k in range(n_colours):
+        phase_start[k] = m
+        for c in range(n_blocks):
+            if colour[c] == k:
+                schedule[m] = c
+                m += 1
+    phase_start[n_colours] = m
+    return n_colours
 
 
 @njit(cache=True, parallel=True)
