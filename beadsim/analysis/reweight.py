@@ -57,6 +57,11 @@ class Pooled:
         Statistical inefficiency g used to subsample each temperature, in samples.
     equilibration : ndarray, shape (K,), int64
         First sample counted as equilibrated at each temperature.
+    energy_reference : float
+        Subtracted from every energy before it is divided by T, epsilon (the mean of the kept
+        energies). It adds a constant to each state's reduced potentials, which shifts MBAR's free
+        energies but not its weights, and keeps the reduced potentials of chains whose bond energy
+        is thousands of epsilon small enough for pymbar's weight checks.
     """
 
     temperatures: np.ndarray
@@ -65,6 +70,7 @@ class Pooled:
     counts: np.ndarray
     inefficiencies: np.ndarray
     equilibration: np.ndarray
+    energy_reference: float
 
 
 def pool_samples(temperatures, energies, observables=None, detect=True):
@@ -109,10 +115,11 @@ def pool_samples(temperatures, energies, observables=None, detect=True):
         counts.append(index.size)
         gs.append(g)
         starts.append(t0)
-    return Pooled(temperatures=t, energies=np.concatenate(kept_u),
+    energies = np.concatenate(kept_u)
+    return Pooled(temperatures=t, energies=energies,
                   observables={name: np.concatenate(v) for name, v in kept_obs.items()},
                   counts=np.array(counts, dtype=np.int64), inefficiencies=np.array(gs),
-                  equilibration=np.array(starts, dtype=np.int64))
+                  equilibration=np.array(starts, dtype=np.int64), energy_reference=float(energies.mean()))
 
 
 def _inefficiency(x):
@@ -120,14 +127,20 @@ def _inefficiency(x):
     return 1.0 if np.ptp(x) == 0 else statistical_inefficiency(x)
 
 
-def _reduced(energies, temperatures):
-    """Reduced potentials u_kn = U_n / T_k, shape (K, n)."""
-    return energies[None, :] / temperatures[:, None]
+def _reduced(pooled, temperatures):
+    """Reduced potentials u_kn = (U_n - U_ref) / T_k, shape (K, n) (see ``Pooled.energy_reference``)."""
+    return (pooled.energies - pooled.energy_reference)[None, :] / temperatures[:, None]
 
 
 def _solve(pooled, initial_f_k=None):
     from pymbar import MBAR  # after .stats, which quiets pymbar's import-time log
-    return MBAR(_reduced(pooled.energies, pooled.temperatures), pooled.counts, initial_f_k=initial_f_k)
+    from pymbar.utils import ParameterError
+
+    try:
+        return MBAR(_reduced(pooled, pooled.temperatures), pooled.counts, initial_f_k=initial_f_k)
+    except ParameterError as exc:
+        raise AnalysisError(f"MBAR did not converge ({exc}); check that neighbouring temperatures overlap "
+                            "(swap acceptance well above zero)") from None
 
 
 @dataclass(frozen=True)
@@ -193,15 +206,24 @@ def reweighted_curves(pooled, grid, n_beads):
     -------
     Curves
     """
+    from pymbar.utils import ParameterError
+
     grid = _check_grid(grid, pooled)
     n_beads = positive_int(n_beads, "n_beads")
     mbar = _solve(pooled)
-    u_ln = _reduced(pooled.energies, grid)
+    try:
+        return _curves(mbar, pooled, grid, n_beads)
+    except ParameterError as exc:
+        raise AnalysisError(f"MBAR expectations failed ({exc})") from None
+
+
+def _curves(mbar, pooled, grid, n_beads):
+    u_ln = _reduced(pooled, grid)
     means, errors = {}, {}
     for name, values in pooled.observables.items():
         out = mbar.compute_expectations(values, u_kn=u_ln)
         means[name], errors[name] = np.asarray(out["mu"]), np.asarray(out["sigma"])
-    shift = pooled.energies.mean()
+    shift = pooled.energy_reference
     du = pooled.energies - shift
     u_mean, u_err, cv, cv_err = (np.empty(grid.size) for _ in range(4))
     for i, temp in enumerate(grid):
@@ -230,12 +252,13 @@ def _two_moments(mbar, du, u_n):
     return np.asarray(out["mu"]), cov
 
 
-def _heat_capacity_curve(energies, temperatures, counts, f_k, grid, n_beads):
+def _heat_capacity_curve(pooled, f_k, grid, n_beads):
     """MBAR heat capacity per bead on ``grid`` from solved free energies (vectorised weights, module notes)."""
-    log_denominator = logsumexp(np.log(counts)[:, None] + f_k[:, None] - _reduced(energies, temperatures), axis=0)
-    log_w = -_reduced(energies, grid) - log_denominator[None, :]
+    log_denominator = logsumexp(np.log(pooled.counts)[:, None] + f_k[:, None] - _reduced(pooled, pooled.temperatures),
+                                axis=0)
+    log_w = -_reduced(pooled, grid) - log_denominator[None, :]
     w = np.exp(log_w - logsumexp(log_w, axis=1, keepdims=True))
-    du = energies - energies.mean()
+    du = pooled.energies - pooled.energy_reference
     first, second = w @ du, w @ (du * du)
     return (second - first ** 2) / (n_beads * grid ** 2)
 
@@ -301,7 +324,7 @@ def heat_capacity_peak(pooled, n_beads, n_grid=401, n_bootstrap=100, seed=0):
     grid = np.linspace(pooled.temperatures[0], pooled.temperatures[-1], positive_int(n_grid, "n_grid"))
     mbar = _solve(pooled)
     f_k = np.asarray(mbar.f_k)
-    curve = _heat_capacity_curve(pooled.energies, pooled.temperatures, pooled.counts, f_k, grid, n_beads)
+    curve = _heat_capacity_curve(pooled, f_k, grid, n_beads)
     value = _peak(grid, curve)
     if value is None:
         return Peak(None, None, None, 0, "the heat capacity is largest at the edge of the sampled range: "
@@ -312,10 +335,9 @@ def heat_capacity_peak(pooled, n_beads, n_grid=401, n_bootstrap=100, seed=0):
     for _ in range(n_bootstrap):
         pick = np.concatenate([rng.integers(a, b, b - a) for a, b in itertools.pairwise(bounds)])
         resample = Pooled(pooled.temperatures, pooled.energies[pick], {}, pooled.counts, pooled.inefficiencies,
-                          pooled.equilibration)
+                          pooled.equilibration, pooled.energy_reference)
         f_b = np.asarray(_solve(resample, initial_f_k=f_k).f_k)
-        peak = _peak(grid, _heat_capacity_curve(resample.energies, pooled.temperatures, pooled.counts, f_b, grid,
-                                                n_beads))
+        peak = _peak(grid, _heat_capacity_curve(resample, f_b, grid, n_beads))
         if peak is not None:
             found.append(peak)
     note = "" if len(found) == n_bootstrap else (f"{n_bootstrap - len(found)} of {n_bootstrap} resamples had "
