@@ -119,6 +119,8 @@ def main(argv=None):
     parser.add_argument("--folder", help="working folder (default: a temporary one)")
     parser.add_argument("--steps", type=int, default=40000, help="production steps per point")
     parser.add_argument("--json", help="also write the results to this JSON file")
+    parser.add_argument("--backends", nargs="+", choices=("local", "dask"), default=["local", "dask"],
+                        help="backends to time (default: both)")
     args = parser.parse_args(argv)
     folder = Path(args.folder or tempfile.mkdtemp(prefix="beadsim_speedup_"))
     folder.mkdir(parents=True, exist_ok=True)
@@ -130,7 +132,8 @@ def main(argv=None):
                                                                                                 "replicas = 1"))
     subprocess.run([sys.executable, "-m", "beadsim", "sweep", str(warm), "--out", str(folder / "warm"), "--quiet",
                     "--workers", "1"], check=True, stdout=subprocess.DEVNULL)
-    runs = [timed_sweep(folder / "study.toml", folder / f"{backend}_{n}", backend, n) for backend, n in RUNS]
+    runs = [timed_sweep(folder / "study.toml", folder / f"{backend}_{n}", backend, n) for backend, n in RUNS
+            if backend in args.backends]
     machine = {"cpu": cpu_model(), "nproc": os.cpu_count(), "usable_cores": len(os.sched_getaffinity(0)),
                "python": platform.python_version(), "steps_per_point": args.steps}
     print(f"machine: {machine}")

@@ -322,9 +322,20 @@ def results_frame(store):
 
 
 def study_identity(study, base):
-    """Hash of what makes two studies the same model: the base settings and the control parameter."""
-    from ..config import settings_hash
-    return settings_hash({"base": base, "control": study["control"], "seed": study["seed"]})
+    """Hash of what makes two studies the same model: the base settings, the control parameter and the seed.
+
+    Base settings left at their schema defaults are not hashed, so that a later
+    version which adds an input key or section with defaults still recognises the folder.
+    """
+    from ..config import SCHEMA, settings_hash
+
+    given = {}
+    for section, values in base.items():
+        changed = {key: value for key, value in values.items()
+                   if key not in SCHEMA.get(section, {}) or value != SCHEMA[section][key][1]}
+        if changed:
+            given[section] = changed
+    return settings_hash({"base": given, "control": study["control"], "seed": study["seed"]})
 
 
 def run_study(study_path, out=None, *, workers=None, backend="local", cluster=None, progress=True,
