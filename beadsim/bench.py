@@ -28,7 +28,7 @@ import numpy as np
 from .engine.integrators import BAOABLangevin
 from .engine.reference import reference_forces
 from .engine.simulation import Simulation
-from .engine.threads import set_threads, threads_for
+from .engine.threads import PARALLEL_MIN_BEADS, set_threads, threads_for
 from .kernels.forces import total_forces
 from .kernels.integrate import BAOAB, half_kick, move_beads, refresh_list
 from .model.build import build_chains
@@ -278,7 +278,7 @@ def format_table(report):
     lines = [head, "-" * len(head)]
     threads = report["summary"]["threads"]
     for label, r in report["systems"].items():
-        t = 1 if label == "A (1 thread)" or r["n_beads"] < 1000 else threads
+        t = 1 if label == "A (1 thread)" or r["n_beads"] < PARALLEL_MIN_BEADS else threads
         ratio = f"{r['speedup_vs_reference']:.0f}" if "speedup_vs_reference" in r else "-"
         lines.append(f"{label:<14}{r['n_beads']:>8}{r['bead_steps_per_s'] / 1e6:>16.2f}"
                      f"{r['bead_steps_per_s_min'] / 1e6:>7.2f}-{r['bead_steps_per_s_max'] / 1e6:<6.2f}"
