@@ -41,6 +41,7 @@ import numpy as np
 from . import __version__
 from .config import settings_hash, to_toml
 from .engine.health import guarded
+from .engine.hybrid import DYNAMICS_CAUTION, HybridSampler
 from .engine.integrators import make_integrator
 from .engine.loop import snapshot
 from .engine.simulation import Simulation
@@ -99,8 +100,14 @@ def build_simulation(settings):
                           seed=settings["run"]["seed"])
     integrator = make_integrator(dyn["integrator"], timestep=dyn["timestep"], temperature=dyn["temperature"],
                                  friction=dyn["friction"])
-    return Simulation(system, build_forcefield(settings), integrator, seed=settings["run"]["seed"],
-                      skin=dyn["skin"])
+    sim = Simulation(system, build_forcefield(settings), integrator, seed=settings["run"]["seed"], skin=dyn["skin"])
+    sm = settings["sampling"]
+    if sm["method"] == "hybrid":
+        HybridSampler(sim, segment_steps=sm["segment_steps"], pivot_moves=sm["pivot_moves_per_segment"],
+                      crankshaft_moves=sm["crankshaft_moves_per_segment"],
+                      crankshaft_max_angle=sm["crankshaft_max_angle"])
+        log.warning("%s", DYNAMICS_CAUTION)
+    return sim
 
 
 def chain_sizes(positions, offsets):
@@ -291,7 +298,7 @@ def run(settings, out, *, resume=False, overwrite=False, progress=True, allow_lo
         if settings["run"]["minimize"]:
             sim.minimize()
     recorder = _Recorder(sim, settings, out, manifest)
-    start_step, started = sim.step_count, time.perf_counter()
+    start_step, started, cpu_started = sim.step_count, time.perf_counter(), time.process_time()
     bar = _progress(total, start_step, progress)
     try:
         with _StopRequest() as stop:
@@ -316,6 +323,8 @@ def run(settings, out, *, resume=False, overwrite=False, progress=True, allow_lo
     recorder.close()
     wall = time.perf_counter() - started
     summary = _summary(settings, sim, wall, sim.step_count - start_step)
+    summary["sampling"] = _sampling_summary(settings, sim, out, sim.step_count - start_step,
+                                            time.process_time() - cpu_started)
     summary["input_toml_sha256"] = hashlib.sha256((out / INPUT_FILE).read_bytes()).hexdigest()
     (out / SUMMARY_FILE).write_text(json.dumps(summary, indent=2) + "\n", encoding="utf-8")
     return summary
@@ -396,3 +405,24 @@ def _summary(settings, sim, wall, steps):
         "columns": COLUMNS,
     }
 
+
+def _sampling_summary(settings, sim, out, steps, cpu_seconds):
+    """Sampling method, Monte Carlo acceptance (hybrid) and independent Rg samples per CPU-second.
+
+    The rate uses the production rows of the scalar table and this session's
+    CPU time per step (Monte Carlo rounds included), so it holds for resumed runs too.
+    """
+    from .analysis.efficiency import independent_samples_rate
+    from .io import read_table
+    report = {"method": settings["sampling"]["method"]}
+    if sim.hybrid is not None:
+        report.update(note=DYNAMICS_CAUTION, acceptance=sim.hybrid.acceptance())
+    table = read_table(out / TABLE_FILE)
+    rg = table["radius_of_gyration"][table["step"] > settings["run"]["equilibration_steps"]].to_numpy()
+    speed = steps / cpu_seconds if steps > 0 and cpu_seconds > 0 else None
+    report["cpu_seconds_this_session"] = round(cpu_seconds, 3)
+    if speed is None or rg.size < 2:
+        report["rg_independent_samples"] = {"per_cpu_second": None, "reason": "no production steps in this session"}
+    else:
+        report["rg_independent_samples"] = independent_samples_rate(rg, settings["output"]["table_interval"], speed)
+    return report
