@@ -25,6 +25,8 @@ import importlib.util
 import logging
 import multiprocessing
 import os
+import threading
+import time
 import weakref
 
 from .._validate import positive_int
@@ -49,6 +51,31 @@ def _pin_one_thread():
     numba.set_num_threads(1)
 
 
+#: Seconds between a local worker's checks that its coordinator is still alive.
+PARENT_CHECK_SECONDS = 1.0
+
+
+def _start_worker(coordinator):
+    """Initialise a local-pool worker: one numba thread, and exit when the coordinator is gone.
+
+    A coordinator killed outright (kill -9, an out-of-memory kill) cannot stop its
+    workers, and a worker only notices the broken pipe after its current point, which
+    may run for hours while a resumed sweep runs the same point again. A daemon
+    thread therefore checks every :data:`PARENT_CHECK_SECONDS` whether the worker
+    has been re-parented and then ends the process at once; the point resumes from
+    its last checkpoint in the next sweep.
+    """
+    _pin_one_thread()
+
+    def watch():
+        while os.getppid() == coordinator:
+            time.sleep(PARENT_CHECK_SECONDS)
+        log.warning("coordinator %d is gone; worker %d stops", coordinator, os.getpid())
+        os._exit(3)
+
+    threading.Thread(target=watch, name="beadsim-coordinator-watch", daemon=True).start()
+
+
 class LocalPool:
     """A pool of worker processes on this machine (the default backend).
 
@@ -66,7 +93,7 @@ class LocalPool:
 
     def __enter__(self):
         self._pool = cf.ProcessPoolExecutor(max_workers=self.workers, mp_context=multiprocessing.get_context("spawn"),
-                                            initializer=_pin_one_thread)
+                                            initializer=_start_worker, initargs=(os.getpid(),))
         return self
 
     def __exit__(self, *exc):

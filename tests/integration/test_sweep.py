@@ -105,6 +105,38 @@ def test_killed_sweep_resumes_only_unfinished_points(tmp_path):
     assert len(pd.read_csv(out / RESULTS_CSV)) == len(after)  # each point recorded exactly once
 
 
+def _children(pid):
+    """Direct child process ids of ``pid`` (Linux /proc)."""
+    return {int(c) for t in Path(f"/proc/{pid}/task").iterdir() for c in (t / "children").read_text().split()}
+
+
+def test_workers_stop_when_the_coordinator_is_killed(tmp_path):
+    # kill -9 the coordinator only: its local-pool workers must not go on running points on their own
+    path = _study(tmp_path, values="[1.5, 2.0]", steps=4_000_000)
+    out = tmp_path / "out"
+    cmd = [sys.executable, "-m", "beadsim", "sweep", str(path), "--out", str(out), "--workers", "2", "--quiet"]
+    env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parents[2])}
+    proc = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+                            start_new_session=True)
+    try:
+        deadline = time.time() + 240
+        while time.time() < deadline and not any((out / "points").glob("*/checkpoint.npz")):
+            time.sleep(0.5)
+        workers = {c for c in _children(proc.pid) if "spawn_main" in Path(f"/proc/{c}/cmdline").read_text()}
+        assert workers, "no worker was running a point before the deadline"
+        proc.kill()
+        proc.wait()
+        deadline = time.time() + 30
+        while time.time() < deadline and any(Path(f"/proc/{w}").exists() for w in workers):
+            time.sleep(0.2)
+        assert not any(Path(f"/proc/{w}").exists() for w in workers), "workers outlived their coordinator"
+    finally:
+        try:
+            os.killpg(proc.pid, signal.SIGKILL)
+        except ProcessLookupError:
+            pass
+
+
 @pytest.mark.parametrize("kwargs, words", [
     ({"values": "[]"}, "range is empty"),
     ({"control": "depth"}, "cosine_squared"),
