@@ -23,6 +23,13 @@ per control value); a case that lacks data gives ``value=None`` with a note.
   :func:`beadsim.analysis.scaling.nu_from_chain_size`; compact globules give nu = 1/3
   (de Gennes 1979; Rubinstein and Colby 2003) [memory]. The globule density assumes a
   uniform sphere, ``Rg^2 = 3 R^2 / 5``: ``rho = N / ((4 pi / 3) (5 Rg^2 / 3)^(3/2))`` (sigma^-3).
+* Long-chain limit of the globule exponent (:func:`globule_extrapolation`): short globules are
+  mostly surface, so a plain power law over accessible N gives nu below 1/3. A compact globule
+  with a surface layer of fixed width has ``Rg = a N^(1/3) + c``, whose local exponent
+  ``nu(N) = d ln Rg / d ln N = 1/3 - (c / 3a) N^(-1/3) + O(N^(-2/3))`` is linear in the
+  surface-to-volume ratio ``N^(-1/3)``. The local exponents between successive chain lengths
+  are fitted by generalised least squares (their covariance follows from the errors of
+  ``ln Rg``, so neighbours sharing a length are correlated) to ``nu_inf + b N^(-1/3)``.
 """
 
 import logging
@@ -219,4 +226,62 @@ def globule_scaling(df, control_kind, n_controls=1):
         out.append(Estimate(method, fit.nu, fit.nu_error, _describe(df[df["control"] == control]), tuple(fit_notes),
                             {"control": float(control), "chi2_reduced": fit.fit.chi2_reduced, "n_beads": n,
                              "density": density}))
+    return out
+
+
+def globule_extrapolation(df, control_kind, n_controls=1):
+    """Globule exponent extrapolated to long chains, linearly in N^(-1/3) (module notes).
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+        Results table.
+    control_kind : {"temperature", "depth"}
+    n_controls : int
+        How many of the poorest control values to treat (each separately).
+
+    Returns
+    -------
+    list of Estimate
+        One per control value, poorest first: ``value`` = nu_inf (1/3 expected); ``details``:
+        ``control``, ``slope`` (b), ``chi2``, ``n_beads``, ``local_nu`` and ``local_nu_error``
+        (the local exponents between successive lengths and their standard errors).
+    """
+    n_controls = positive_int(n_controls, "n_controls")
+    df, notes = usable_runs(check_table(df, control_kind), ("rg2", "rg2_error"))
+    m, rg, err = _root_mean_square(df)
+    controls = np.unique(m["control"].to_numpy())
+    poorest = controls[:n_controls] if control_kind == "temperature" else controls[::-1][:n_controls]
+    out = []
+    for control in poorest:
+        sel = m["control"].to_numpy() == control
+        order = np.argsort(m["n_beads"].to_numpy()[sel])
+        n = m["n_beads"].to_numpy()[sel][order].astype(np.float64)
+        log_rg, log_err = np.log(rg[sel][order]), (err[sel] / rg[sel])[order]
+        method = f"globule exponent extrapolated in N^(-1/3) at control {control:g}"
+        described = _describe(df[df["control"] == control])
+        if n.size < 3:
+            out.append(Estimate(method, None, None, described,
+                                tuple(notes + [f"needs at least 3 chain lengths at this control value, has {n.size}"])))
+            continue
+        # local exponents nu_k = (ln Rg_{k+1} - ln Rg_k) / (ln N_{k+1} - ln N_k) = D ln Rg
+        step = np.diff(np.log(n))
+        d = (np.eye(n.size, k=1)[:-1] - np.eye(n.size)[:-1]) / step[:, None]
+        local = d @ log_rg
+        cov = d @ np.diag(log_err ** 2) @ d.T
+        x = np.sqrt(n[1:] * n[:-1]) ** (-1.0 / 3.0)  # (N_k N_{k+1})^(-1/6): geometric-mean length
+        design = np.column_stack([np.ones_like(x), x])
+        weight = np.linalg.inv(cov)
+        fit_cov = np.linalg.inv(design.T @ weight @ design)
+        coef = fit_cov @ design.T @ weight @ local
+        residual = local - design @ coef
+        nu_inf, nu_err = float(coef[0]), float(np.sqrt(fit_cov[0, 0]))
+        fit_notes = list(notes) + [f"nu_inf - 1/3 = {(nu_inf - 1.0 / 3.0) / nu_err:+.1f} standard errors, "
+                                   f"1/2 - nu_inf = {(0.5 - nu_inf) / nu_err:+.1f}"]
+        if n.size == 3:
+            fit_notes.append("3 chain lengths: the line passes through both local exponents (no check of the form)")
+        out.append(Estimate(method, nu_inf, nu_err, described, tuple(fit_notes),
+                            {"control": float(control), "slope": float(coef[1]),
+                             "chi2": float(residual @ weight @ residual), "n_beads": n,
+                             "local_nu": local, "local_nu_error": np.sqrt(np.diag(cov))}))
     return out

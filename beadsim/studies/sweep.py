@@ -541,7 +541,7 @@ def estimate_everything(frame, control_kind, figures, seed=0):
     fig.sigmoid_figure(frame, control_kind, sigmoids, figures / "transition")
     out["regime_figures"] = _regime_figures(frame, control_kind, figures, primary)
     fits = (size_exponents(frame, control_kind) + sigmoids + collapse.heat_capacity_peaks(frame, control_kind)
-            + collapse.globule_scaling(frame, control_kind))
+            + collapse.globule_scaling(frame, control_kind) + collapse.globule_extrapolation(frame, control_kind))
     for e in fits:
         text = "-" if e.value is None else (f"{e.value:.4g} +- {e.error:.2g}" if e.error is not None
                                             else f"{e.value:.4g}")
