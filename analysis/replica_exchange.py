@@ -94,7 +94,7 @@ def report(folder):
     rung = read_table(folder / "ladder" / rung_folder(0) / SAMPLE_FILE)
     plain = read_table(folder / "plain" / "observables.csv")
     plain = plain[plain["step"] > 0]
-    cpu_ladder = json.loads((folder / "ladder" / "cpu_run.json").read_text())["cpu_seconds"]  # the run, not re-analyses
+    cpu_ladder = json.loads((folder / "ladder" / "cpu.json").read_text())["cpu_seconds"]
     cpu_plain = json.loads((folder / "plain" / "cpu.json").read_text())["cpu_seconds"]
     # compare at equal cost: the plain run up to 8 x the steps the ladder's replicas have taken
     ladder_steps = int(rung["step"].max())
