@@ -15,6 +15,7 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import breadth_first_order, connected_components
 
 from ..errors import AnalysisError
+from ..io.safety import refusing_pickles
 from ._common import check_length_scale, check_positions
 
 logger = logging.getLogger(__name__)
@@ -60,7 +61,8 @@ def load_trajectory(path, top=None, frames=None):
             f"{path}: the {ext} format stores no topology (bead names and bonds); "
             f"give a topology file too, e.g. the .h5 or .pdb file written with the run")
     try:
-        traj = mdtraj.load(path, top=top) if top is not None else mdtraj.load(path)
+        with refusing_pickles(path):  # PyTables would unpickle HDF5 attributes: a file could run code
+            traj = mdtraj.load(path, top=top) if top is not None else mdtraj.load(path)
     except Exception as exc:  # mdtraj raises many unrelated types for bad files
         raise AnalysisError(f"{path}: cannot be read as a trajectory ({type(exc).__name__}: {exc})") from None
     if traj.topology.n_bonds == 0:

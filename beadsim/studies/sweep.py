@@ -321,6 +321,18 @@ def results_frame(store):
     return pd.DataFrame(rows)
 
 
+def _study_provenance(study, base):
+    """Versions, threads, seed and input hash of a study: how to reproduce it or explain a difference.
+
+    Each point's own ``summary.json`` holds the same for the process that ran it (one numba thread per
+    point on both backends).
+    """
+    from ..config import settings_hash
+    from ..runner import provenance
+    return {**provenance(), "seed": study["seed"], "numba_threads_per_point": 1,
+            "study_sha256": settings_hash({"study": study, "base": base})}
+
+
 def study_identity(study, base):
     """Hash of what makes two studies the same model: the base settings, the control parameter and the seed.
 
@@ -390,6 +402,7 @@ def run_study(study_path, out=None, *, workers=None, backend="local", cluster=No
             _reanalyze(store)
         summary = finalize(store, study, out)
         summary["wall_seconds"] = round(time.perf_counter() - started, 1)
+        summary.update(_study_provenance(study, base))
         (out / SUMMARY_FILE).write_text(json.dumps(summary, indent=2, default=_json_default) + "\n")
         return summary
     finally:

@@ -1,0 +1,81 @@
+"""Fault-injection suite: shared switches, the tally of faults and bad inputs, and subprocess helpers.
+
+Every test here is marked ``faults``. By default each runs a short version (a few kills, a small
+fuzzing budget); ``--faults-long`` runs the full one. ``--fault-record FILE`` writes the tally
+(:class:`Tally`) as JSON when the session ends; ``analysis/reliability.py`` turns it into
+``analysis/reliability.md``.
+"""
+
+import json
+import os
+import sys
+from collections import defaultdict
+from pathlib import Path
+
+import pytest
+
+import beadsim
+
+#: Folder holding the ``beadsim`` package, for the ``PYTHONPATH`` of subprocesses.
+PACKAGE_ROOT = str(Path(beadsim.__file__).resolve().parents[1])
+#: Seconds a subprocess may take to import beadsim (numba loads or compiles its kernels) and start working.
+STARTUP_TIMEOUT = 240.0
+
+
+def pytest_collection_modifyitems(config, items):
+    for item in items:
+        if Path(str(item.fspath)).parent == Path(__file__).parent:
+            item.add_marker(pytest.mark.faults)
+
+
+class Tally:
+    """Counts per fault kind: injected, survived, frames lost and duplicated, bad inputs, uncaught exceptions."""
+
+    FIELDS = ("injected", "survived", "frames_lost", "frames_duplicated", "bad_inputs", "uncaught")
+
+    def __init__(self):
+        self.rows = defaultdict(lambda: dict.fromkeys(self.FIELDS, 0))
+
+    def add(self, kind, **counts):
+        for key, value in counts.items():
+            self.rows[kind][key] += int(value)
+
+    def as_dict(self):
+        return {kind: dict(row) for kind, row in sorted(self.rows.items())}
+
+
+_TALLY = Tally()
+
+
+@pytest.fixture(scope="session")
+def tally():
+    """The session's :class:`Tally` (written to ``--fault-record`` at the end)."""
+    return _TALLY
+
+
+@pytest.fixture(scope="session")
+def long_faults(request):
+    """True when the suite runs at full length (``--faults-long``)."""
+    return bool(request.config.getoption("--faults-long"))
+
+
+def pytest_sessionfinish(session, exitstatus):
+    path = session.config.getoption("--fault-record")
+    if path and _TALLY.rows:
+        Path(path).write_text(json.dumps({"long": bool(session.config.getoption("--faults-long")),
+                                          "exit_status": int(exitstatus), "faults": _TALLY.as_dict()}, indent=2)
+                              + "\n", encoding="utf-8")
+
+
+@pytest.fixture(scope="session")
+def subprocess_env():
+    """Environment for subprocesses: this checkout first on ``PYTHONPATH``."""
+    env = dict(os.environ)
+    env["PYTHONPATH"] = os.pathsep.join(p for p in (PACKAGE_ROOT, env.get("PYTHONPATH")) if p)
+    return env
+
+
+@pytest.fixture(scope="session")
+def python():
+    """The interpreter running the tests, for subprocesses."""
+    return sys.executable
