@@ -20,6 +20,7 @@ from ..errors import InstabilityError
 from ..kernels import forces as KF
 from ..kernels.integrate import BAOAB as _BAOAB, BROWNIAN as _BROWNIAN, VERLET as _VERLET, advance
 from ..model.potentials import lookup
+from .health import non_finite_term
 from .threads import threads_for
 
 
@@ -56,7 +57,13 @@ class Integrator:
         n_steps : int
         """
         counters = np.zeros(2, dtype=np.int64)
-        self._step_impl(sim, int(n_steps), counters)
+        try:
+            self._step_impl(sim, int(n_steps), counters)
+        except ZeroDivisionError:  # the force kernel met two interacting beads at one point
+            sim.step_count += int(counters[0]) + 1
+            raise InstabilityError(f"two interacting beads reached the same position at step {sim.step_count} "
+                                   "(pair term): the dynamics is unstable; lower the timestep",
+                                   step=sim.step_count) from None
         sim.step_count += int(counters[0])
         sim.rebuilds += int(counters[1])
         status, index = int(sim.info[0]), int(sim.info[1])
@@ -130,4 +137,6 @@ def _describe(status, index, sim):
         what = (f"bond {index}" if index >= 0 else f"a pair at bead {-1 - index}")
         return (f"{what} left the range of its tabulated potential {where}; extend the table to "
                 "shorter/longer distances or lower the timestep")
-    return f"non-finite energy {where}: the dynamics blew up; lower the timestep"
+    bead, term = non_finite_term(sim)
+    return (f"non-finite energy {where} (bead {bead}, {term} term): the dynamics blew up; lower the timestep"
+            + (", or check the tabulated potential for a hole" if term != "bending" else ""))
