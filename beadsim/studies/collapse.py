@@ -278,10 +278,13 @@ def globule_extrapolation(df, control_kind, n_controls=1):
         nu_inf, nu_err = float(coef[0]), float(np.sqrt(fit_cov[0, 0]))
         fit_notes = list(notes) + [f"nu_inf - 1/3 = {(nu_inf - 1.0 / 3.0) / nu_err:+.1f} standard errors, "
                                    f"1/2 - nu_inf = {(0.5 - nu_inf) / nu_err:+.1f}"]
+        chi2 = float(residual @ weight @ residual)
         if n.size == 3:
             fit_notes.append("3 chain lengths: the line passes through both local exponents (no check of the form)")
+        else:
+            fit_notes.append(f"chi2 = {chi2:.2g} for {n.size - 3} degrees of freedom")
         out.append(Estimate(method, nu_inf, nu_err, described, tuple(fit_notes),
                             {"control": float(control), "slope": float(coef[1]),
-                             "chi2": float(residual @ weight @ residual), "n_beads": n,
+                             "chi2": chi2, "n_beads": n,
                              "local_nu": local, "local_nu_error": np.sqrt(np.diag(cov))}))
     return out
