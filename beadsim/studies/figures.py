@@ -14,6 +14,7 @@ import os
 import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
+from matplotlib.ticker import NullFormatter
 
 from ..errors import InputError
 from .collapse import logistic
@@ -218,6 +219,8 @@ def size_scaling_figure(df, control_kind, controls, path):
         ax.plot(n_all, anchor * (n_all / n_mid) ** slope, color="0.4", ls=style, lw=0.9, label=f"slope {slope:.3g}")
     ax.set_xscale("log")
     ax.set_yscale("log")
+    ax.set_xticks(n_all, [f"{n:g}" for n in n_all])  # the chain lengths themselves, not crowded minor labels
+    ax.xaxis.set_minor_formatter(NullFormatter())
     ax.set_xlabel("chain length N [beads]")
     ax.set_ylabel("Rg = <Rg^2>^(1/2) [sigma]")
     ax.legend(frameon=False, fontsize="x-small")
