@@ -85,8 +85,14 @@ def distribution(values, bins=100, value_range=None):
     density : ndarray, shape (bins,), float64
         Integrates to 1 over the range.
     """
-    values = np.ravel(np.asarray(values, dtype=np.float64))
-    density, edges = np.histogram(values, bins=bins, range=value_range, density=True)
+    values = np.ravel(as_array(values, "values", finite=False))
+    if values.size == 0 or (value_range is None and not np.all(np.isfinite(values))):
+        raise AnalysisError("values: need samples, all finite unless value_range is given (the histogram's range "
+                            "comes from the samples)")
+    try:
+        density, edges = np.histogram(values, bins=bins, range=value_range, density=True)
+    except (TypeError, ValueError) as exc:
+        raise AnalysisError(f"bins / value_range: {exc}") from None
     return 0.5 * (edges[1:] + edges[:-1]), density
 
 

@@ -128,6 +128,8 @@ def find_chains(topology, require_linear=True):
     AnalysisError
         No bonds, or a non-linear chain while ``require_linear`` is True.
     """
+    if not isinstance(topology, mdtraj.Topology):
+        raise AnalysisError(f"topology: expected an mdtraj.Topology, got {type(topology).__name__}")
     graph = _bond_graph(topology)
     n_comp, labels = connected_components(graph, directed=False)
     degree = np.diff(graph.indptr)
@@ -184,6 +186,8 @@ def unwrap_chains(positions, topology, box_vectors):
         Unwrapped copy; beads in no chain are left where they were.
     """
     x = check_positions(positions).copy()
+    if not isinstance(topology, mdtraj.Topology):
+        raise AnalysisError(f"topology: expected an mdtraj.Topology, got {type(topology).__name__}")
     graph = _bond_graph(topology)
     n_comp, labels = connected_components(graph, directed=False)
     depth = np.full(x.shape[1], -1, dtype=np.int64)
@@ -208,8 +212,16 @@ def unwrap_chains(positions, topology, box_vectors):
     return x
 
 
+def check_trajectory(traj, name="traj"):
+    """Raise AnalysisError unless ``traj`` is an :class:`mdtraj.Trajectory`."""
+    if not isinstance(traj, mdtraj.Trajectory):
+        raise AnalysisError(f"{name}: expected an mdtraj.Trajectory (for example from beadsim.analysis."
+                            f"load_trajectory), got {type(traj).__name__}")
+
+
 def is_periodic(traj):
     """True if every frame of ``traj`` has a unit cell of positive volume (a zero box marks an open system)."""
+    check_trajectory(traj)
     return traj.unitcell_vectors is not None and bool(np.all(np.abs(np.linalg.det(traj.unitcell_vectors)) > 0))
 
 
@@ -231,6 +243,7 @@ def trajectory_positions(traj, length_scale=None, unwrap=True):
     -------
     ndarray, shape (n_frames, n_beads, 3), float64
     """
+    check_trajectory(traj)
     scale = check_length_scale(length_scale)
     x = np.asarray(traj.xyz, dtype=np.float64) / scale
     if unwrap and is_periodic(traj):

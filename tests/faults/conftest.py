@@ -22,10 +22,20 @@ PACKAGE_ROOT = str(Path(beadsim.__file__).resolve().parents[1])
 STARTUP_TIMEOUT = 240.0
 
 
+#: Modules not yet run to completion on this project's machines (written while the shared machine was
+#: saturated): they run only with --faults-long until a default-suite run has been measured.
+NOT_YET_MEASURED = {"test_fuzz_inputs.py", "test_fuzz_analysis.py", "test_safe_loading.py", "test_kill_study.py"}
+
+
 def pytest_collection_modifyitems(config, items):
+    long = config.getoption("--faults-long")
+    skip = pytest.mark.skip(reason="fault test not yet measured in the default suite: run with --faults-long")
     for item in items:
-        if Path(str(item.fspath)).parent == Path(__file__).parent:
+        path = Path(str(item.fspath))
+        if path.parent == Path(__file__).parent:
             item.add_marker(pytest.mark.faults)
+            if path.name in NOT_YET_MEASURED and not long:
+                item.add_marker(skip)
 
 
 class Tally:
