@@ -115,8 +115,10 @@ def test_kill_9_at_random_moments_and_inside_writes_loses_and_duplicates_no_fram
     out = tmp_path / "out"
     rng = np.random.default_rng(20261202)  # the kill schedule: seed stated, so a failure can be replayed
     n_random, places = (18, list(PLACES)) if long_faults else (2, ["checkpoint", "frame"])
-    schedule = [("random", None)] * n_random + [(place, int(rng.integers(1, PLACES[place] + 1))) for place in places]
-    rng.shuffle(schedule)
+    bound = (lambda place: PLACES[place]) if long_faults else (lambda place: min(PLACES[place], 5))
+    schedule = [(place, int(rng.integers(1, bound(place) + 1))) for place in places] + [("random", None)] * n_random
+    if long_faults:
+        rng.shuffle(schedule)  # the short version kills inside writes first, while most of the run is still ahead
     injected = 0
     for where, k in schedule:
         if where == "random":
@@ -142,7 +144,7 @@ def test_kill_9_at_random_moments_and_inside_writes_loses_and_duplicates_no_fram
     tally.add("kill -9 of a run (random moments and inside writes)", injected=injected,
               survived=injected if (lost, duplicated) == (0, 0) else 0, frames_lost=lost,
               frames_duplicated=duplicated)
-    assert injected >= (20 if long_faults else 3)  # the kills landed mid-run
+    assert injected >= (20 if long_faults else 3)  # the kills landed mid-run (a late one may find the run done)
     assert (lost, duplicated) == (0, 0)
     assert b.n_frames == len(expected_times())
     np.testing.assert_array_equal(a.xyz, b.xyz)
