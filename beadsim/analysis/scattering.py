@@ -28,7 +28,7 @@ from .._validate import as_array, positive
 from ..errors import AnalysisError, InputError
 from ..kernels.scattering import debye_sum, linear_binned_pair_distances
 from ._common import check_chains, check_length_scale, check_positions, group_by_length, line_fit
-from .trajectory import find_chains, trajectory_positions
+from .trajectory import check_trajectory, find_chains, trajectory_positions
 
 logger = logging.getLogger(__name__)
 
@@ -131,7 +131,10 @@ def debye_function(x):
     -------
     ndarray, float64, same shape as ``x``
     """
-    x = np.asarray(x, dtype=np.float64)
+    try:
+        x = np.asarray(x, dtype=np.float64)
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"x: expected numbers, got {type(x).__name__} ({exc})") from None
     small = x < 1e-3
     xs = np.where(small, 1.0, x)
     exact = 2.0 * (np.expm1(-xs) + xs) / xs ** 2
@@ -356,6 +359,7 @@ def compute_structure_factor(traj, q_max, shell_width=None, length_scale=None):
     -------
     StructureFactor
     """
+    check_trajectory(traj)
     if traj.unitcell_lengths is None:
         raise AnalysisError("structure factor needs a periodic box, but the trajectory has no unit cell")
     if not np.allclose(traj.unitcell_angles, 90.0):
