@@ -184,6 +184,9 @@ def persistence_length(correlation, mean_bond_length, cutoff=np.exp(-2.0)):
     else:
         slope, _, cov, _ = line_fit(s, np.log(c[:s_max + 1]))
         decay, error = -slope, np.sqrt(cov[0, 0])
+    if not decay > 0:  # bonds fully correlated at every separation: no decay, no finite length
+        raise AnalysisError("persistence length undefined: the bond correlation does not decay (C(s) = 1), "
+                            "as for a rigid rod")
     length = mean_bond_length / decay
     return PersistenceFit(length=float(length), error=float(length * error / decay), s_max=int(s_max))
 

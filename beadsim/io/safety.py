@@ -30,7 +30,12 @@ class _PickleRefused(Exception):
     """Raised in place of unpickling an HDF5 attribute."""
 
 
+_refused = threading.local()
+
+
 def _refuse(*args, **kwargs):
+    # PyTables may swallow this exception and keep the raw bytes; the flag makes the refusal stick
+    _refused.seen = True
     raise _PickleRefused("an HDF5 attribute holds a pickled Python object")
 
 
@@ -60,14 +65,17 @@ def refusing_pickles(path):
     threads reading at the same time wait for each other) and restores it
     afterwards, also when the block raises.
     """
+    message = (f"{os.fspath(path)}: holds a pickled Python object in an HDF5 attribute; refused, because "
+               "loading it could run arbitrary code (beadsim and mdtraj never write such attributes)")
     with _lock:
         saved = tables.attributeset.pickle
         tables.attributeset.pickle = _NO_UNPICKLING
+        _refused.seen = False
         try:
             yield
         except _PickleRefused:
-            raise InputError(f"{os.fspath(path)}: holds a pickled Python object in an HDF5 attribute; refused, "
-                             "because loading it could run arbitrary code (beadsim and mdtraj never write such "
-                             "attributes)") from None
+            raise InputError(message) from None
         finally:
             tables.attributeset.pickle = saved
+        if _refused.seen:
+            raise InputError(message)
