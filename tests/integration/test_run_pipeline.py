@@ -11,6 +11,7 @@ Inputs are small open-box FENE + WCA chains (16-32 beads) written into ``tmp_pat
 """
 
 import errno
+import hashlib
 import json
 import os
 import signal
@@ -129,6 +130,9 @@ def test_summary_records_versions_seed_and_throughput(small_run):
     assert summary["wall_seconds"] > 0
     assert summary["bead_steps_per_second"] > 0
     assert len(summary["input_sha256"]) == 64 and int(summary["input_sha256"], 16) >= 0
+    # reference: hashlib over the resolved input file, what `sha256sum input.toml` prints
+    assert summary["input_toml_sha256"] == hashlib.sha256((out / "input.toml").read_bytes()).hexdigest()
+    assert summary["numba_threads"] >= 1
 
 
 def test_final_checkpoint_holds_the_last_step(small_run):
