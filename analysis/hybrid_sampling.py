@@ -72,14 +72,24 @@ def measure(n, steps, every, seed, hybrid=None, equilibration=0):
     return rec
 
 
-def crosscheck(scale):
-    """<Rg^2> of hybrid sampling at N = 64 and 128 beside the long plain-Langevin record of
-    analysis/good_solvent_scaling.md (same model); the error is from the statistical inefficiency."""
+CROSSCHECK_CASES = {  # name: (pair potential, N, kT, production steps) ; plain records in the docstring
+    "wca_64": ("wca", 64, 1.0, 400_000),
+    "wca_128": ("wca", 128, 1.0, 400_000),
+    "lj_64_kT2.25": ("lj", 64, 2.25, 400_000),
+}
+
+
+def crosscheck(scale, names):
+    """Hybrid <Rg^2> beside the long plain-Langevin records of the same models: WCA at N = 64 and 128
+    (analysis/good_solvent_scaling.md) and LJ 2.5 at N = 64, kT = 2.25, below theta
+    (analysis/lj_theta_calibration.md); the error is from the statistical inefficiency."""
     from beadsim.analysis.stats import summarize
     out = {}
-    for n, steps in ((64, 400_000), (128, 400_000)):
-        sim = bs.Simulation(bs.build_chains(n, seed=21), bs.ForceField(bs.WCA(), bs.FENE()),
-                            bs.BAOABLangevin(0.005, temperature=1.0, friction=0.5), seed=21)
+    for name in names:
+        pair, n, kT, steps = CROSSCHECK_CASES[name]
+        potential = bs.WCA() if pair == "wca" else bs.LennardJones(cutoff=2.5)
+        sim = bs.Simulation(bs.build_chains(n, seed=21), bs.ForceField(potential, bs.FENE()),
+                            bs.BAOABLangevin(0.005, temperature=kT, friction=0.5), seed=21)
         sim.minimize()
         HybridSampler(sim, segment_steps=20, pivot_moves=n // 4, crankshaft_moves=0)
         sim.advance(int(20_000 * scale))
@@ -88,8 +98,9 @@ def crosscheck(scale):
             x = snap.positions
             rg2.append(float(np.mean(np.sum((x - x.mean(axis=0)) ** 2, axis=1))))
         s = summarize(np.array(rg2))
-        out[n] = {"rg2": s.mean, "error": s.error, "n_independent": s.n_independent, "steps": int(steps * scale)}
-        print(json.dumps({n: out[n]}), flush=True)
+        out[name] = {"rg2": s.mean, "error": s.error, "n_independent": s.n_independent, "steps": int(steps * scale),
+                     "acceptance": sim.hybrid.acceptance()}
+        print(json.dumps({name: out[name]}), flush=True)
     return out
 
 
@@ -97,12 +108,16 @@ def main():
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     parser.add_argument("--quick", type=float, nargs="?", const=0.1, default=None, metavar="FRACTION",
                         help="runs shortened to FRACTION (default 0.1) of their length, to try the script")
-    parser.add_argument("--crosscheck", action="store_true",
-                        help="only the hybrid <Rg^2> at N = 64 and 128 (-> hybrid_sampling_crosscheck.json)")
+    parser.add_argument("--crosscheck", nargs="*", choices=list(CROSSCHECK_CASES), metavar="CASE",
+                        help="only the hybrid <Rg^2> cross-checks (all if none named; merged into "
+                             "hybrid_sampling_crosscheck.json)")
     args = parser.parse_args()
     scale = args.quick or 1.0
-    if args.crosscheck:
-        (HERE / "hybrid_sampling_crosscheck.json").write_text(json.dumps(crosscheck(scale), indent=2) + "\n")
+    if args.crosscheck is not None:
+        path = HERE / "hybrid_sampling_crosscheck.json"
+        done = json.loads(path.read_text()) if path.exists() else {}
+        done.update(crosscheck(scale, args.crosscheck or list(CROSSCHECK_CASES)))
+        path.write_text(json.dumps(done, indent=2) + "\n")
         return
     numba.set_num_threads(1)
     machine = {"uptime_before": subprocess.run(["uptime"], capture_output=True, text=True, check=False).stdout.strip(),
