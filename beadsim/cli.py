@@ -50,6 +50,16 @@ def _cmd_sweep(args):
     return 0 if not summary["failed"] else EXIT_INPUT
 
 
+def _cmd_temper(args):
+    from .studies.tempering import format_summary, temper
+
+    summary = temper(args.ladder, Path(args.out), workers=args.workers, cluster=args.cluster,
+                     progress=not args.quiet)
+    print(format_summary(summary))
+    print(f"samples, frames, curves and figures in {args.out}")
+    return 0
+
+
 def _cmd_bench(args):
     import json
 
@@ -63,6 +73,19 @@ def _cmd_bench(args):
     if args.json:
         Path(args.json).write_text(json.dumps(report, indent=2) + "\n", encoding="utf-8")
         print(f"results in {args.json}")
+    return 0
+
+
+def _cmd_vet(args):
+    from .studies.vet import vet
+
+    out = Path(args.out) if args.out else Path(f"{Path(args.model).stem}_vet")
+    if not args.quiet:
+        print(f"beadsim: vetting {args.model} (compiling kernels on first use); report in {out}", file=sys.stderr)
+    report = vet(args.model, out, budget_minutes=args.budget, fast=args.fast, overwrite=args.overwrite)
+    for v in report["verdicts"]:
+        print(f"{v['status']:>7}  {v['title']}: {v['message']}")
+    print(f"{len(report['problems'])} problem(s); report: {report['html']}")
     return 0
 
 
@@ -95,6 +118,16 @@ def build_parser():
                    help="analyse finished points again from their files (after an analysis upgrade)")
     p.set_defaults(func=_cmd_sweep)
 
+    p = sub.add_parser("temper", help="replica exchange across a temperature ladder, then MBAR curves and the "
+                       "heat-capacity peak")
+    p.add_argument("ladder", help="ladder file (TOML, section [ladder])")
+    p.add_argument("--out", required=True, help="output folder; run again to continue, or with more rounds to extend")
+    p.add_argument("--workers", type=int, help="run replicas on this many local worker processes (default: this "
+                   "process only)")
+    p.add_argument("--cluster", help="run replicas with dask: 'local:N' or a scheduler address 'tcp://HOST:PORT'")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.set_defaults(func=_cmd_temper)
+
     p = sub.add_parser("bench", help="time the standard systems: bead-steps per second, where the time goes, "
                        "gain over the NumPy reference")
     p.add_argument("--json", help="also write the results to this JSON file")
@@ -102,6 +135,16 @@ def build_parser():
     p.add_argument("--threads", type=int, help="kernel threads (default: all numba was started with)")
     p.add_argument("--quiet", action="store_true", help="only the table")
     p.set_defaults(func=_cmd_bench)
+
+    p = sub.add_parser("vet", help="check a model before production: timestep, forces, tables, bond crossing, "
+                       "solvent quality, theta point, run time; writes an HTML and a JSON report")
+    p.add_argument("model", help="run input of the model, or a vet file with a [vet] section naming it")
+    p.add_argument("--budget", type=float, help="wall-time budget in minutes (default 30; 4 with --fast)")
+    p.add_argument("--fast", action="store_true", help="short runs throughout, for a first look")
+    p.add_argument("--out", help="report folder (default: <model name>_vet)")
+    p.add_argument("--overwrite", action="store_true", help="replace a report already in the folder")
+    p.add_argument("--quiet", action="store_true", help="no start-up message")
+    p.set_defaults(func=_cmd_vet)
 
     p = sub.add_parser("analyze", help="size, shape, scattering and errors of a trajectory mdtraj can read")
     p.add_argument("trajectory", help="trajectory file")
