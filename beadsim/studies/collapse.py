@@ -188,6 +188,16 @@ def heat_capacity_peaks(df, control_kind, n_points=5):
     return out
 
 
+def _poorest_controls(df, control_kind, n_controls):
+    """Checked runs, notes, point means with Rg and its error, and the ``n_controls`` poorest control values."""
+    n_controls = positive_int(n_controls, "n_controls")
+    df, notes = usable_runs(check_table(df, control_kind), ("rg2", "rg2_error"))
+    m, rg, err = _root_mean_square(df)
+    controls = np.unique(m["control"].to_numpy())
+    poorest = controls[:n_controls] if control_kind == "temperature" else controls[::-1][:n_controls]
+    return df, notes, m, rg, err, poorest
+
+
 def globule_scaling(df, control_kind, n_controls=1):
     """Exponent of ``Rg ~ N^nu`` at the poorest control values, with the globule density.
 
@@ -205,11 +215,7 @@ def globule_scaling(df, control_kind, n_controls=1):
         One per control value, poorest first: ``value`` = nu (1/3 expected for compact globules);
         ``details``: ``control``, ``chi2_reduced``, ``n_beads`` and ``density`` (sigma^-3) arrays.
     """
-    n_controls = positive_int(n_controls, "n_controls")
-    df, notes = usable_runs(check_table(df, control_kind), ("rg2", "rg2_error"))
-    m, rg, err = _root_mean_square(df)
-    controls = np.unique(m["control"].to_numpy())
-    poorest = controls[:n_controls] if control_kind == "temperature" else controls[::-1][:n_controls]
+    df, notes, m, rg, err, poorest = _poorest_controls(df, control_kind, n_controls)
     out = []
     for control in poorest:
         sel = m["control"].to_numpy() == control
@@ -247,11 +253,7 @@ def globule_extrapolation(df, control_kind, n_controls=1):
         ``control``, ``slope`` (b), ``chi2``, ``n_beads``, ``local_nu`` and ``local_nu_error``
         (the local exponents between successive lengths and their standard errors).
     """
-    n_controls = positive_int(n_controls, "n_controls")
-    df, notes = usable_runs(check_table(df, control_kind), ("rg2", "rg2_error"))
-    m, rg, err = _root_mean_square(df)
-    controls = np.unique(m["control"].to_numpy())
-    poorest = controls[:n_controls] if control_kind == "temperature" else controls[::-1][:n_controls]
+    df, notes, m, rg, err, poorest = _poorest_controls(df, control_kind, n_controls)
     out = []
     for control in poorest:
         sel = m["control"].to_numpy() == control
