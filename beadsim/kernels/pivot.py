@@ -43,7 +43,7 @@ import numpy as np
 from numba import njit
 
 from .forces import BOND_FENE, BOND_HARMONIC, hermite_table, pair_energy_force
-from .neighbors import _bucket, _is_excluded
+from .neighbors import _bucket, _is_excluded, cell_stencil
 from .random import normal_pair, uniform_open
 
 PIVOT, CRANKSHAFT = 0, 1
@@ -126,19 +126,7 @@ def _pair_energy_with_fixed(i, x, y, z, lo, hi, pos, types, kinds, params, table
     cx = math.floor(x / width)
     cy = math.floor(y / width)
     cz = math.floor(z / width)
-    n_near = 0
-    for ox in range(-1, 2):
-        for oy in range(-1, 2):
-            for oz in range(-1, 2):
-                b = _bucket(cx + ox, cy + oy, cz + oz, _NO_CELLS, False, n_buckets)
-                seen = False
-                for m in range(n_near):
-                    if near[m] == b:
-                        seen = True
-                        break
-                if not seen:
-                    near[n_near] = b
-                    n_near += 1
+    n_near = cell_stencil(cx, cy, cz, _NO_CELLS, False, n_buckets, near)
     has_excl = excl_start[i + 1] > excl_start[i]
     ti = types[i]
     energy = 0.0
