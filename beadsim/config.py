@@ -149,6 +149,14 @@ def read_settings(path):
     return validate(load_toml(path), source=str(path), base=path.parent)
 
 
+def check_only_section(src, raw, name, kind):
+    """Refuse any section of a parsed file other than ``[name]``; ``kind`` names the file type in the message."""
+    for section in raw:
+        if section != name:
+            raise InputError(f"{src}: unknown section [{section}]{suggest(section, [name])}; "
+                             f"a {kind} file has one section [{name}]")
+
+
 def load_toml(path):
     """Parse a TOML file into a dict; InputError naming the file if it cannot be read or parsed."""
     path = Path(path)

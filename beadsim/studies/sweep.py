@@ -19,7 +19,8 @@ from pathlib import Path
 import numpy as np
 import tables
 
-from ..config import AT_LEAST_ONE, POSITIVE, REQUIRED, check_section, choice, load_toml, read_settings, suggest
+from ..config import (AT_LEAST_ONE, POSITIVE, REQUIRED, check_only_section, check_section, choice, load_toml,
+                      read_settings)
 from ..errors import InputError
 
 log = logging.getLogger(__name__)
@@ -64,10 +65,7 @@ def read_study(path):
     path = Path(path)
     raw = load_toml(path)
     src = str(path)
-    for section in raw:
-        if section != "study":
-            raise InputError(f"{src}: unknown section [{section}]{suggest(section, ['study'])}; "
-                             "a study file has one section [study]")
+    check_only_section(src, raw, "study", "study")
     study = check_section(src, "study", STUDY_SCHEMA, raw.get("study", {}))
     study["values"] = _control_values(study, src)
     lengths = study["chain_lengths"]

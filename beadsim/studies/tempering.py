@@ -58,7 +58,8 @@ from pathlib import Path
 
 import numpy as np
 
-from ..config import AT_LEAST_ONE, REQUIRED, check_section, choice, load_toml, read_settings, settings_hash, suggest
+from ..config import (AT_LEAST_ONE, REQUIRED, check_only_section, check_section, choice, load_toml, read_settings,
+                      settings_hash)
 from ..errors import InputError
 
 log = logging.getLogger(__name__)
@@ -146,10 +147,7 @@ def read_ladder(path):
     path = Path(path)
     raw = load_toml(path)
     src = str(path)
-    for section in raw:
-        if section != "ladder":
-            raise InputError(f"{src}: unknown section [{section}]{suggest(section, ['ladder'])}; "
-                             "a ladder file has one section [ladder]")
+    check_only_section(src, raw, "ladder", "ladder")
     if not isinstance(raw.get("ladder"), dict):
         raise InputError(f"{src}: a ladder file needs a section [ladder] (keys: {', '.join(LADDER_SCHEMA)})")
     ladder = check_section(src, "ladder", LADDER_SCHEMA, raw["ladder"])
