@@ -42,7 +42,7 @@ def _format_value(value, column):
 def _write_failed(path, exc):
     """OutputError naming ``path`` and the cause of a failed write."""
     return OutputError(f"{path}: cannot write the table ({exc.strerror or exc}); rows covered by the last "
-                       "checkpoint are intact: free space (or fix the cause) and continue with --resume")
+                       "checkpoint are intact: free space (or remove the cause) and continue with --resume")
 
 
 def _check_columns(columns):

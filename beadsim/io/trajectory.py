@@ -55,7 +55,7 @@ def _write_failed(path, exc):
     """OutputError naming ``path`` and the cause of a failed write."""
     reason = getattr(exc, "strerror", None) or str(exc) or type(exc).__name__
     return OutputError(f"{path}: cannot write the trajectory ({reason}); frames covered by the last checkpoint "
-                       "are intact: free space (or fix the cause) and continue with --resume")
+                       "are intact: free space (or remove the cause) and continue with --resume")
 
 
 def topology_path(path):
