@@ -205,6 +205,38 @@ def replica_seed(seed, replica):
 _SIMULATIONS = {}
 
 
+def start_simulation(model, seed, start=None):
+    """A replica's (or any run's) Simulation at step 0: the model built with ``seed``, then its start structure.
+
+    Parameters
+    ----------
+    model : dict
+        Run settings (:func:`beadsim.config.read_settings`).
+    seed : int
+        Seed of the grown chain and of the thermostat noise.
+    start : tuple of ndarray, optional
+        ``(positions, velocities)``, float64 (n_beads, 3), sigma and sigma/tau: a given start
+        conformation that replaces the grown chain (not minimised: it is taken as it is, for instance
+        an equilibrated chain of another temperature). None: the grown chain, minimised when
+        ``[run] minimize`` is on.
+
+    Returns
+    -------
+    Simulation
+    """
+    from ..runner import build_simulation
+
+    settings = copy.deepcopy(model)
+    settings["run"]["seed"] = int(seed)
+    sim = build_simulation(settings)
+    if start is not None:
+        sim.system.positions[:], sim.system.velocities[:] = start
+        sim.refresh_neighbors()
+    elif model["run"]["minimize"]:
+        sim.minimize()
+    return sim
+
+
 def advance_replica(task):
     """Run one replica for one round at one temperature; executed in a worker.
 
@@ -212,7 +244,8 @@ def advance_replica(task):
     ----------
     task : dict
         ``model`` (run settings), ``seed`` (the replica's), ``state`` (arrays of
-        :meth:`Simulation.state_arrays`, or None to build and minimise the start structure),
+        :meth:`Simulation.state_arrays`, or None to start the replica: :func:`start_simulation`
+        with the optional ``start`` conformation of the task),
         ``temperature`` (epsilon/k_B), ``steps``, ``sample_interval``, ``frame_interval``,
         ``frames`` (bool: keep frames this round).
 
@@ -236,11 +269,7 @@ def _advance_replica(task):
     model = task["model"]
     key = settings_hash(model)
     if task["state"] is None:
-        settings = copy.deepcopy(model)
-        settings["run"]["seed"] = task["seed"]
-        sim = build_simulation(settings)
-        if model["run"]["minimize"]:
-            sim.minimize()
+        sim = start_simulation(model, task["seed"], task.get("start"))
         _SIMULATIONS[key] = sim
     else:
         sim = _SIMULATIONS.get(key) or build_simulation(model)
@@ -482,7 +511,7 @@ def _prepare(out, ladder, model, identity):
     return state
 
 
-def run_ladder(ladder, model, out, *, backend=None, progress=True, analyze=True):
+def run_ladder(ladder, model, out, *, backend=None, progress=True, analyze=True, start=None):
     """Run (or continue) a replica-exchange ladder into ``out``; return its summary.
 
     Parameters
@@ -499,6 +528,11 @@ def run_ladder(ladder, model, out, *, backend=None, progress=True, analyze=True)
         Show a progress bar over rounds.
     analyze : bool
         Analyse the finished ladder (:func:`analyze_ladder`) and write ``summary.json``.
+    start : tuple of array_like, optional
+        ``(positions, velocities)``, float64 (n_beads, 3), sigma and sigma/tau: one conformation
+        every replica starts from (taken as it is, not minimised), instead of each replica's own
+        grown chain. Each replica still has its own noise seed. Used only when the folder holds no
+        checkpoint; it is not part of the ladder's identity.
 
     Returns
     -------
@@ -507,9 +541,15 @@ def run_ladder(ladder, model, out, *, backend=None, progress=True, analyze=True)
     from tqdm import tqdm
 
     from .. import __version__
+    from .._validate import as_array
     from ..io import write_checkpoint
 
     out = Path(out)
+    if start is not None:
+        shape = (int(sum(model["chains"]["length"])), 3)
+        if not isinstance(start, (tuple, list)) or len(start) != 2:
+            raise InputError(f"start: expected (positions, velocities), got {type(start).__name__}")
+        start = tuple(as_array(x, f"start {name}", shape=shape) for x, name in zip(start, ("positions", "velocities")))
     identity = ladder_identity(ladder, model)
     temps = np.array(ladder["temperatures"])
     state = _prepare(out, ladder, model, identity)
@@ -525,6 +565,7 @@ def run_ladder(ladder, model, out, *, backend=None, progress=True, analyze=True)
             while state.round < total:
                 frames = state.round >= ladder["equilibration_rounds"]
                 tasks = [{"model": model, "seed": replica_seed(ladder["seed"], int(r)), "state": state.states[r],
+                          "start": start if state.states[r] is None else None,
                           "temperature": temps[k], "steps": ladder["exchange_interval"],
                           "sample_interval": ladder["sample_interval"], "frame_interval": ladder["frame_interval"],
                           "frames": frames} for k, r in enumerate(state.replica_at)]
