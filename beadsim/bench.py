@@ -161,7 +161,20 @@ def reference_step_time(sim, n_steps):
     return (time.perf_counter() - t) / n_steps
 
 
-def measure(system, forcefield, *, repeats=5, bead_steps=2_000_000, warmup_steps=300, reference_steps=None):
+def _timed_rate(sim, steps, threads=None):
+    """Bead-steps per second of one timed ``advance(steps)``, on ``threads`` threads if given."""
+    previous = set_threads(threads) if threads is not None else None
+    try:
+        t = time.perf_counter()
+        sim.advance(steps)
+        return sim.system.n_beads * steps / (time.perf_counter() - t)
+    finally:
+        if previous is not None:
+            set_threads(previous)
+
+
+def measure(system, forcefield, *, repeats=5, bead_steps=2_000_000, warmup_steps=300, reference_steps=None,
+            versus_one_thread=False):
     """Benchmark one system.
 
     Parameters
@@ -176,24 +189,30 @@ def measure(system, forcefield, *, repeats=5, bead_steps=2_000_000, warmup_steps
         Untimed steps after minimisation (compilation, first list builds).
     reference_steps : int, optional
         Steps of the NumPy reference to time (default: 3 above 20,000 beads, else 10); 0 skips it.
+    versus_one_thread : bool
+        Also time the same run on one thread right after each timed repeat, so that both
+        thread counts see the same machine state; the parallel speed-up is the median of
+        the paired ratios (a quiet stretch or a busy one affects both halves of a pair).
 
     Returns
     -------
     dict
         ``n_beads``, ``steps_per_repeat``, ``bead_steps_per_s`` (median), ``bead_steps_per_s_min``,
         ``bead_steps_per_s_max``, ``ms_per_step`` (median), ``ms_force``, ``ms_list``, ``ms_update``,
-        ``rebuilds_per_step``, ``neighbours_per_bead``, ``reference_ms_per_step``, ``speedup_vs_reference``.
+        ``rebuilds_per_step``, ``neighbours_per_bead``, ``reference_ms_per_step``, ``speedup_vs_reference``;
+        with ``versus_one_thread`` also ``one_thread_bead_steps_per_s`` (median) and
+        ``speedup_vs_one_thread`` (median, min, max of the paired ratios).
     """
     n = system.n_beads
     sim = _prepare(system, forcefield, warmup_steps)
     steps = max(20, bead_steps // n)
-    rates, rebuilds = [], 0
+    rates, single, rebuilds = [], [], 0
     for _ in range(repeats):
         before = sim.rebuilds
-        t = time.perf_counter()
-        sim.advance(steps)
-        rates.append(n * steps / (time.perf_counter() - t))
+        rates.append(_timed_rate(sim, steps))
         rebuilds += sim.rebuilds - before
+        if versus_one_thread:
+            single.append(_timed_rate(sim, steps, threads=1))
     per_rebuild = rebuilds / (repeats * steps)
     t_force, t_list, t_move = _split(sim, per_rebuild, max(3, repeats))
     rate = float(np.median(rates))
@@ -211,6 +230,10 @@ def measure(system, forcefield, *, repeats=5, bead_steps=2_000_000, warmup_steps
         "rebuilds_per_step": per_rebuild,
         "neighbours_per_bead": 2.0 * sim.neighbors.n_pairs / n,
     }
+    if versus_one_thread:
+        paired = np.array(rates) / np.array(single)
+        out["one_thread_bead_steps_per_s"] = float(np.median(single))
+        out["speedup_vs_one_thread"] = [float(np.median(paired)), float(paired.min()), float(paired.max())]
     if reference_steps is None:
         reference_steps = 3 if n > 20_000 else 10
     if reference_steps:
@@ -253,20 +276,15 @@ def run_benchmarks(quick=False, threads=None, log=print):
         results[label] = dict(measure(system, forcefield, **settings, **extra), load_average_1min=loads[-1])
 
     for key, (_, make) in SYSTEMS.items():
-        record(key, *make())
-        if key == "A" and threads > 1:
-            previous = set_threads(1)
-            try:
-                record("A (1 thread)", *make(), reference_steps=0)
-            finally:
-                set_threads(previous)
+        record(key, *make(), versus_one_thread=key == "A" and threads > 1)
     sizes = QUICK_SIZE_SERIES if quick else SIZE_SERIES
     for n in sizes:
         record(f"F {n}", *_melt(n, WCA()), reference_steps=0)
     exponent = size_exponent(sizes, [results[f"F {n}"]["ms_per_step"] for n in sizes])
     summary = {"threads": threads, "quick": quick, "size_exponent": exponent}
-    if "A (1 thread)" in results:
-        summary["speedup_threads_vs_1"] = results["A"]["bead_steps_per_s"] / results["A (1 thread)"]["bead_steps_per_s"]
+    if "speedup_vs_one_thread" in results["A"]:
+        summary["speedup_threads_vs_1"] = results["A"]["speedup_vs_one_thread"]
+        summary["one_thread_bead_steps_per_s"] = results["A"]["one_thread_bead_steps_per_s"]
     return {"machine": machine_description(), "summary": summary, "systems": results,
             "descriptions": {k: v[0] for k, v in SYSTEMS.items()}}
 
@@ -278,7 +296,7 @@ def format_table(report):
     lines = [head, "-" * len(head)]
     threads = report["summary"]["threads"]
     for label, r in report["systems"].items():
-        t = 1 if label == "A (1 thread)" or r["n_beads"] < PARALLEL_MIN_BEADS else threads
+        t = 1 if r["n_beads"] < PARALLEL_MIN_BEADS else threads
         ratio = f"{r['speedup_vs_reference']:.0f}" if "speedup_vs_reference" in r else "-"
         lines.append(f"{label:<14}{r['n_beads']:>8}{r['bead_steps_per_s'] / 1e6:>16.2f}"
                      f"{r['bead_steps_per_s_min'] / 1e6:>7.2f}-{r['bead_steps_per_s_max'] / 1e6:<6.2f}"
@@ -288,6 +306,8 @@ def format_table(report):
     s, m = report["summary"], report["machine"]
     tail = f"threads {s['threads']}; size exponent (F) {s['size_exponent']:.3f}"
     if "speedup_threads_vs_1" in s:
-        tail += f"; A speed-up {s['threads']} threads vs 1: {s['speedup_threads_vs_1']:.2f}"
+        mid, lo, hi = s["speedup_threads_vs_1"]
+        tail += (f"; A on 1 thread {s['one_thread_bead_steps_per_s'] / 1e6:.2f} M bead-steps/s, speed-up "
+                 f"{s['threads']} threads vs 1: {mid:.2f} ({lo:.2f}-{hi:.2f}, paired repeats)")
     lines += ["", tail, f"machine: {m['cpu_model']}, {m['nproc']} CPUs, load average {m['load_average_1_5_15']}"]
     return "\n".join(lines)

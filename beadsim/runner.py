@@ -155,7 +155,7 @@ class _Recorder:
         args = (out / o["trajectory"], topology, o["length_scale_nm"], sim.system.box.lengths)
         self.trajectory = PartedTrajectory(*args) if manifest is None else PartedTrajectory.resume(*args, manifest)
         self.table = ScalarTable(out / TABLE_FILE, tuple(COLUMNS), mode="w" if manifest is None else "a")
-        self.every = math.gcd(math.gcd(o["frame_interval"], o["table_interval"]), o["checkpoint_interval"])
+        self.every = (o["frame_interval"], o["table_interval"], o["checkpoint_interval"])
 
     def append(self, snap):
         o = self.settings["output"]

@@ -43,14 +43,24 @@ def iterate(sim, n_steps, every):
 
     Steps are counted from the simulation's current step, so resumed runs
     yield the same steps an uninterrupted run would.
+
+    Parameters
+    ----------
+    sim : beadsim.engine.simulation.Simulation
+    n_steps : int
+    every : int or sequence of int
+        Snapshot interval(s) in steps: with several, a snapshot comes at every
+        multiple of any of them, and the compiled loop runs uninterrupted up to
+        the next such step (never in strides of their greatest common divisor,
+        which for intervals such as 597 and 2987 would be one step).
     """
     n_steps = positive_int(n_steps, "n_steps", allow_zero=True)
-    every = positive_int(every, "every")
+    intervals = [positive_int(e, "every") for e in np.atleast_1d(every).tolist()]
     end = sim.step_count + n_steps
     while sim.step_count < end:
-        target = min(end, (sim.step_count // every + 1) * every)
+        target = min(end, *((sim.step_count // e + 1) * e for e in intervals))
         sim.advance(target - sim.step_count)
-        if sim.step_count % every == 0:
+        if any(sim.step_count % e == 0 for e in intervals):
             yield snapshot(sim)
 
 
