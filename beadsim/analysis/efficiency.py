@@ -12,12 +12,33 @@ equilibrium distribution (e.g. Janke, in Quantum Simulations of Complex
 Many-Body Systems, NIC Series 10, 423, 2002). When ``g`` is close to 1 the samples
 are already uncorrelated and the rate is only a lower bound (sample more often
 to resolve it).
+
+Lower bound on g from runs shorter than the correlation time
+------------------------------------------------------------
+For a quantity of a reversible Markov chain at equilibrium the sums of adjacent
+autocovariances ``gamma_{2k} + gamma_{2k+1}`` are positive, decreasing and convex
+(Geyer, Statist. Sci. 7, 473, 1992, theorem 3.1; see also Sokal 1997, Monte Carlo
+methods in statistical mechanics: foundations and new algorithms, for the
+spectral representation behind it). Hence every partial sum ending at an odd lag
+K bounds g from below:
+
+    g = 1 + 2 sum_{t>=1} rho(t)  >=  1 + 2 sum_{t=1}^{K} rho(t),   K odd.
+
+:func:`autocorrelation_from_starts` estimates rho(t) from several runs started
+from independent equilibrium states, about a mean and variance known from
+elsewhere (for example a sampler of the same distribution that decorrelates
+much faster), so the estimate is not pulled down by each short run's own mean,
+which is what makes mean-subtracted autocorrelations of runs shorter than the
+correlation time useless. :func:`inefficiency_partial_sums` gives the bounds.
 """
 
 import math
 
-from .._validate import positive
-from ..errors import AnalysisError
+import numpy as np
+
+from .._validate import as_array, positive, positive_int
+from ..errors import AnalysisError, InputError
+from .dynamics import _autocorrelation_sum
 from .stats import summarize
 
 RESOLVED_INEFFICIENCY = 2.0
@@ -67,3 +88,69 @@ def independent_samples_rate(series, interval_steps, steps_per_cpu_second):
     if not math.isfinite(out["per_cpu_second"]):
         out["per_cpu_second"] = None
     return out
+
+
+def autocorrelation_from_starts(runs, mean, variance, max_lag=None):
+    """Normalised autocorrelation of a quantity from runs started in equilibrium, about a known mean.
+
+    For run r with samples x_r[0 .. n-1] and lag k (in samples),
+
+        rho_r(k) = sum_{s=0}^{n-1-k} (x_r[s] - mean) (x_r[s+k] - mean) / ((n - k) variance),
+
+    an unbiased estimate of rho(k) for every run when the runs start from the
+    equilibrium distribution and ``mean`` and ``variance`` are exact (see the
+    module notes). Average over runs for the estimate; their spread gives its
+    standard error.
+
+    Parameters
+    ----------
+    runs : array_like, shape (n_runs, n), float64
+        Equally spaced samples of each run, the first at the equilibrium start.
+    mean, variance : float
+        Equilibrium mean and variance of the quantity (variance > 0), from an
+        independent and precise source.
+    max_lag : int, optional
+        Largest lag, samples (default and upper limit: n - 1).
+
+    Returns
+    -------
+    ndarray, shape (n_runs, max_lag + 1), float64
+        rho_r(k) for k = 0 .. max_lag; column 0 is each run's mean square
+        deviation over ``variance`` (1 on average).
+    """
+    x = as_array(runs, "runs", shape=(None, None))
+    if x.shape[1] < 2:
+        raise AnalysisError(f"runs: need at least 2 samples per run, got {x.shape[1]}")
+    variance = positive(variance, "variance")
+    n = x.shape[1]
+    max_lag = n - 1 if max_lag is None else positive_int(max_lag, "max_lag", allow_zero=True)
+    if max_lag > n - 1:
+        raise InputError(f"max_lag: at most n - 1 = {n - 1} for runs of {n} samples, got {max_lag}")
+    dev = x - float(mean)
+    sums = _autocorrelation_sum(dev.T[:, :, None])[: max_lag + 1].T
+    return sums / (n - np.arange(max_lag + 1)) / variance
+
+
+def inefficiency_partial_sums(rho):
+    """Partial sums ``1 + 2 sum_{t=1}^{K} rho(t)`` for K = 0 .. max_lag, each run's and their mean with its error.
+
+    For a reversible chain the sums at odd K are lower bounds on the statistical
+    inefficiency g (module notes).
+
+    Parameters
+    ----------
+    rho : array_like, shape (n_runs, max_lag + 1), float64
+        Per-run autocorrelations from :func:`autocorrelation_from_starts`, n_runs >= 2.
+
+    Returns
+    -------
+    per_run : ndarray, shape (n_runs, max_lag + 1)
+    mean : ndarray, shape (max_lag + 1,)
+    error : ndarray, shape (max_lag + 1,)
+        Standard error of ``mean`` from the spread over runs (runs independent).
+    """
+    rho = as_array(rho, "rho", shape=(None, None))
+    if rho.shape[0] < 2:
+        raise AnalysisError(f"rho: need at least 2 runs for an error, got {rho.shape[0]}")
+    per_run = 1.0 + 2.0 * np.concatenate([np.zeros((rho.shape[0], 1)), np.cumsum(rho[:, 1:], axis=1)], axis=1)
+    return per_run, per_run.mean(axis=0), per_run.std(axis=0, ddof=1) / math.sqrt(rho.shape[0])

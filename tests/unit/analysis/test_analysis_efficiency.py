@@ -1,0 +1,65 @@
+"""Autocorrelation from runs started in equilibrium about a known mean, and the partial-sum bounds on g.
+
+AR(1): x_t = phi x_{t-1} + e_t, e_t ~ N(0, 1), started from the stationary distribution. Exact:
+mean 0, variance 1/(1-phi^2), autocorrelation phi^t, statistical inefficiency g = (1+phi)/(1-phi)
+(e.g. Box and Jenkins, Time Series Analysis; from memory, and it follows from summing phi^|t|).
+AR(1) with phi > 0 is a reversible chain with positive autocorrelations, so every partial sum is
+below g (Geyer, Statist. Sci. 7, 473, 1992, theorem 3.1).
+"""
+
+import numpy as np
+import pytest
+
+from beadsim.analysis.efficiency import autocorrelation_from_starts, inefficiency_partial_sums
+from beadsim.errors import AnalysisError, InputError
+
+from test_analysis_stats import ar1
+
+
+def test_autocorrelation_from_starts_equals_the_direct_sum():
+    x = np.random.default_rng(3).normal(size=(3, 40))
+    rho = autocorrelation_from_starts(x, mean=0.2, variance=1.7, max_lag=9)
+    direct = [[np.mean((r[: r.size - k] - 0.2) * (r[k:] - 0.2)) / 1.7 for k in range(10)] for r in x]
+    np.testing.assert_allclose(rho, direct, rtol=1e-12, atol=1e-14)
+
+
+def test_short_runs_about_the_known_mean_recover_ar1_autocorrelation_and_bound_g():
+    # seed 12, 400 runs of 100 samples, phi = 0.95 (g = 39, correlation time longer than a third of a run):
+    # the across-run mean of rho(k) must match phi^k within 4 standard errors (from the spread over runs)
+    # at every lag up to 60, and the partial sums must stay below the exact g by the same measure
+    phi, n_runs, n = 0.95, 400, 100
+    x = ar1(np.random.default_rng(12), phi, n, n_series=n_runs)
+    rho = autocorrelation_from_starts(x, mean=0.0, variance=1 / (1 - phi ** 2), max_lag=60)
+    lags = np.arange(61)
+    error = rho.std(axis=0, ddof=1) / np.sqrt(n_runs)
+    assert np.all(np.abs(rho.mean(axis=0) - phi ** lags) < 4 * error + 1e-12)
+    per_run, mean, err = inefficiency_partial_sums(rho)
+    exact_partial = 1 + 2 * np.cumsum(np.r_[0.0, phi ** lags[1:]])
+    assert per_run.shape == (n_runs, 61)
+    assert np.all(np.abs(mean - exact_partial) < 4 * err + 1e-12)
+    assert np.all(mean - 4 * err < (1 + phi) / (1 - phi))
+
+
+def test_own_mean_subtraction_is_what_fails_for_short_runs():
+    # the contrast that motivates the known mean: same runs, each run's own mean subtracted, is biased low
+    phi, n_runs, n = 0.95, 400, 100
+    x = ar1(np.random.default_rng(12), phi, n, n_series=n_runs)
+    own = autocorrelation_from_starts(x - x.mean(axis=1, keepdims=True), 0.0, 1 / (1 - phi ** 2), max_lag=30)
+    known = autocorrelation_from_starts(x, 0.0, 1 / (1 - phi ** 2), max_lag=30)
+    assert own.mean(axis=0)[30] < 0.5 * known.mean(axis=0)[30]
+
+
+@pytest.mark.parametrize("kwargs, error", [
+    ({"runs": np.zeros((2, 1)), "mean": 0.0, "variance": 1.0}, AnalysisError),
+    ({"runs": np.zeros(5), "mean": 0.0, "variance": 1.0}, InputError),
+    ({"runs": np.zeros((2, 5)), "mean": 0.0, "variance": 0.0}, InputError),
+    ({"runs": np.zeros((2, 5)), "mean": 0.0, "variance": 1.0, "max_lag": 5}, InputError),
+])
+def test_autocorrelation_from_starts_refuses_bad_arguments(kwargs, error):
+    with pytest.raises(error):
+        autocorrelation_from_starts(**kwargs)
+
+
+def test_partial_sums_need_two_runs():
+    with pytest.raises(AnalysisError):
+        inefficiency_partial_sums(np.ones((1, 4)))
