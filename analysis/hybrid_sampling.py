@@ -36,22 +36,50 @@ from beadsim.engine.hybrid import HybridSampler
 HERE = Path(__file__).parent
 
 
-def _rg(x):
+def chain_rg(x):
+    """Radius of gyration of one chain, positions (n, 3) -> float, sigma."""
     return float(np.sqrt(np.mean(np.sum((x - x.mean(axis=0)) ** 2, axis=1))))
 
 
 EQUILIBRATION = {"segment_steps": 20, "pivot_moves": 50, "crankshaft_moves": 0}
+HYBRID_512 = {"segment_steps": 20, "pivot_moves": 100, "crankshaft_moves": 0}
+"""The hybrid setting measured at N = 512."""
 
 
-def measure(n, steps, every, seed, hybrid=None, equilibration=0):
+def chain_simulation(n, seed):
+    """A grown (not yet minimised) good-solvent chain of ``n`` beads: FENE + WCA, BAOAB dt 0.005, friction 0.5, kT 1."""
+    return bs.Simulation(bs.build_chains(n, seed=seed), bs.ForceField(bs.WCA(), bs.FENE()),
+                         bs.BAOABLangevin(0.005, temperature=1.0, friction=0.5), seed=seed)
+
+
+def machine_record():
+    """CPU model, core count, versions and ``uptime`` now (the load average before a benchmark)."""
+    machine = {"uptime_before": uptime(), "cpu": platform.processor() or platform.machine(),
+               "cores": os.cpu_count(), "python": platform.python_version(), "numba": numba.__version__,
+               "numba_threads": 1}
+    try:
+        machine["cpu"] = next(line.split(":", 1)[1].strip()
+                              for line in Path("/proc/cpuinfo").read_text().splitlines()
+                              if line.startswith("model name"))
+    except (OSError, StopIteration):
+        pass
+    return machine
+
+
+def uptime():
+    """The output of ``uptime`` (load averages over 1, 5 and 15 minutes)."""
+    return subprocess.run(["uptime"], capture_output=True, text=True, check=False).stdout.strip()
+
+
+def measure(n, steps, every, seed, hybrid=None, equilibration=0, observe=None):
     """Run one chain; return the Rg efficiency record of its production part and the cost per step.
 
     ``hybrid`` is None (plain Langevin) or a dict of HybridSampler arguments. Every chain is first
     brought to equilibrium by ``equilibration`` steps of hybrid sampling (a grown chain is far more
-    compact than an equilibrated one), so that plain runs start in equilibrium.
+    compact than an equilibrated one), so that plain runs start in equilibrium. ``observe``, if given,
+    is called with every production snapshot (its time counts in the CPU time).
     """
-    sim = bs.Simulation(bs.build_chains(n, seed=seed), bs.ForceField(bs.WCA(), bs.FENE()),
-                        bs.BAOABLangevin(0.005, temperature=1.0, friction=0.5), seed=seed)
+    sim = chain_simulation(n, seed)
     sim.minimize()
     warmup = HybridSampler(sim, **EQUILIBRATION)
     sim.advance(equilibration)
@@ -61,7 +89,12 @@ def measure(n, steps, every, seed, hybrid=None, equilibration=0):
         sampler = HybridSampler(sim, **hybrid)
         sampler.move_count = warmup.move_count  # continue the move stream, never reuse its numbers
     cpu0, wall0 = time.process_time(), time.perf_counter()
-    rg = np.array([_rg(snap.positions) for snap in bs.iterate(sim, steps, every)])
+    rg = []
+    for snap in bs.iterate(sim, steps, every):
+        rg.append(chain_rg(snap.positions))
+        if observe is not None:
+            observe(snap)
+    rg = np.array(rg)
     cpu, wall = time.process_time() - cpu0, time.perf_counter() - wall0
     rec = independent_samples_rate(rg, every, steps / cpu)
     rec.update(beads=n, steps=steps, interval_steps=every, cpu_seconds=round(cpu, 2), wall_seconds=round(wall, 2),
@@ -120,23 +153,15 @@ def main():
         path.write_text(json.dumps(done, indent=2) + "\n")
         return
     numba.set_num_threads(1)
-    machine = {"uptime_before": subprocess.run(["uptime"], capture_output=True, text=True, check=False).stdout.strip(),
-               "cpu": platform.processor() or platform.machine(), "cores": os.cpu_count(),
-               "python": platform.python_version(), "numba": numba.__version__, "numba_threads": 1}
-    try:
-        machine["cpu"] = next(line.split(":", 1)[1].strip()
-                              for line in Path("/proc/cpuinfo").read_text().splitlines()
-                              if line.startswith("model name"))
-    except (OSError, StopIteration):
-        pass
+    machine = machine_record()
     name = "hybrid_sampling_quick.json" if args.quick else "hybrid_sampling.json"
     out = {"machine": machine}
 
     def save():
         (HERE / name).write_text(json.dumps(out, indent=2, default=float) + "\n")
 
-    hybrid = {"segment_steps": 20, "pivot_moves": 100, "crankshaft_moves": 0}
-    out["hybrid_512"] = measure(512, int(100_000 * scale), 20, seed=5, hybrid=hybrid, equilibration=int(10_000 * scale))
+    out["hybrid_512"] = measure(512, int(100_000 * scale), 20, seed=5, hybrid=HYBRID_512,
+                                equilibration=int(10_000 * scale))
     save()
     plain = out["plain_small"] = {}
     for n, steps in ((16, 300_000), (32, 600_000), (64, 1_500_000)):
@@ -165,7 +190,7 @@ def main():
     out["ratio_rouse_exponent"] = h / out["plain_512_extrapolated"]["per_cpu_second_rouse_exponent"]
     short = out["plain_512_short"]["per_cpu_second"]
     out["ratio_lower_bound_from_short_run"] = h / short if short else None
-    machine["uptime_after"] = subprocess.run(["uptime"], capture_output=True, text=True, check=False).stdout.strip()
+    machine["uptime_after"] = uptime()
     save()
     print(json.dumps({k: v for k, v in out.items() if k.startswith("ratio")}, indent=2))
 
