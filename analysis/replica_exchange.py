@@ -142,9 +142,10 @@ START_SEED = 1290
 PLAIN_SEEDS = (1291, 1292, 1293)
 LADDER_SEEDS = (1301, 1302, 1303)
 #: Rounds of each ladder (1,000 steps each); every plain run takes the ladder's total, 8 x 1,000 x ROUNDS steps.
-#: Sized from the measured speed (16,000-18,000 steps of this chain per CPU-second, both kinds of run) so
-#: that the six runs take about 25 CPU-minutes, which the session's wall-clock time allowed.
-SWOLLEN_ROUNDS = 500
+#: Sized from the measured speed (16,000-18,000 steps of this chain per CPU-second, both kinds of run) and
+#: the machine's load (this process got about a quarter of a core): the six runs take about 10 CPU-minutes,
+#: 1.6 million steps of one chain each, 80 times the collapse time of the first comparison's ladder replica.
+SWOLLEN_ROUNDS = 200
 #: A run counts as collapsed at its first Rg^2 sample below this (1.5 x the reference <Rg^2> at T = 1.8).
 COLLAPSED_FACTOR = 1.5
 SWOLLEN = "swollen"
