@@ -66,3 +66,21 @@ def positive_int(value, name, *, allow_zero=False):
         rule = ">= 0" if allow_zero else ">= 1"
         raise InputError(f"{name}: must be an integer {rule}, got {value!r}")
     return int(value)
+
+
+def interval(value, name):
+    """Return ``(lo, hi)`` as floats if ``value`` is a pair of numbers, neither NaN (infinite ends allowed).
+
+    Used for inclusive windows such as fit ranges. ``lo > hi`` is accepted: the
+    window is then empty and the caller reports too few points in it.
+    """
+    wrong = InputError(f"{name}: expected a pair of numbers (low, high), got {value!r}")
+    if not isinstance(value, (tuple, list, np.ndarray)):
+        raise wrong
+    try:
+        lo, hi = (float(v) for v in value)
+    except (TypeError, ValueError):
+        raise wrong from None
+    if math.isnan(lo) or math.isnan(hi):
+        raise InputError(f"{name}: expected (low, high) without NaN, got {value!r}")
+    return lo, hi

@@ -10,7 +10,7 @@ so that every quantity is computed with whole-array operations.
 import numpy as np
 
 from .._validate import as_array, positive
-from ..errors import InputError
+from ..errors import AnalysisError, InputError
 
 
 def check_positions(positions, name="positions"):
@@ -98,16 +98,21 @@ def per_chain(positions, chains, func, tail_shape=(), *, chunk_elements=4_000_00
     return out
 
 
-def line_fit(x, y, sigma=None):
+def line_fit(x, y, sigma=None, what="straight-line fit"):
     """Least-squares straight line ``y = slope * x + intercept``.
+
+    Solved in closed form about the weighted mean of x (no matrix inversion), so
+    the only degenerate case, all x equal, is detected and reported.
 
     Parameters
     ----------
     x, y : ndarray, shape (m,), float64
-        Data, m >= 3 (m >= 2 when ``sigma`` is given).
+        Finite data, m >= 3 (m >= 2 when ``sigma`` is given).
     sigma : ndarray, shape (m,), float64, optional
         Standard errors of ``y``; used as absolute weights. Without them the
         covariance is scaled by the residual variance (m - 2 degrees of freedom).
+    what : str
+        Name of the fit in error messages (e.g. "power-law fit").
 
     Returns
     -------
@@ -116,14 +121,33 @@ def line_fit(x, y, sigma=None):
         Covariance of (slope, intercept).
     chi2_reduced : float
         Weighted residual sum of squares over m - 2 (NaN when m == 2).
+
+    Raises
+    ------
+    AnalysisError
+        The weights ``1 / sigma^2`` are not finite and positive, all x are equal
+        (no slope is defined), or the result overflows floating point.
     """
-    w = np.ones_like(x) if sigma is None else 1.0 / sigma ** 2
-    design = np.stack([x, np.ones_like(x)], axis=1)
-    normal = design.T @ (w[:, None] * design)
-    covariance = np.linalg.inv(normal)
-    slope, intercept = covariance @ (design.T @ (w * y))
+    with np.errstate(divide="ignore", over="ignore", under="ignore"):  # checked on the next line
+        w = np.ones_like(x) if sigma is None else 1.0 / sigma ** 2
+    if not np.all(np.isfinite(w) & (w > 0)):
+        raise AnalysisError(f"{what}: the weights 1/sigma^2 must be finite and > 0; "
+                            f"the errors span {sigma.min():g}..{sigma.max():g}")
+    total = w.sum()
+    x_mean = np.sum(w * x) / total
+    dx = x - x_mean
+    sxx = np.sum(w * dx * dx)
+    if not sxx > 0:
+        raise AnalysisError(f"{what}: slope undefined, the {x.size} points share one abscissa "
+                            f"({x[0]:g} on the fit's x axis) or their spread is out of floating-point range")
+    slope = np.sum(w * dx * y) / sxx
+    intercept = np.sum(w * y) / total - slope * x_mean
+    covariance = np.array([[1.0 / sxx, -x_mean / sxx], [-x_mean / sxx, 1.0 / total + x_mean ** 2 / sxx]])
     dof = x.size - 2
     chi2 = float(np.sum(w * (y - slope * x - intercept) ** 2) / dof) if dof > 0 else float("nan")
     if sigma is None:
         covariance = covariance * chi2
+    if not (np.isfinite(slope) and np.isfinite(intercept) and np.all(np.isfinite(covariance))):
+        raise AnalysisError(f"{what}: the fit overflows floating point (x spans {x.min():g}..{x.max():g}, "
+                            f"y spans {y.min():g}..{y.max():g})")
     return float(slope), float(intercept), covariance, chi2

@@ -17,7 +17,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .._validate import as_array
+from .._validate import as_array, interval
 from ..errors import AnalysisError, InputError
 from ._common import line_fit
 
@@ -80,21 +80,35 @@ def fit_power_law(x, y, y_error=None, x_range=None):
     Raises
     ------
     AnalysisError
-        Fewer than two points in the window (three without ``y_error``), or non-positive data.
+        Fewer than two points in the window (three without ``y_error``), non-positive data,
+        or all x in the window equal (no slope defined).
+    InputError
+        Arrays of the wrong shape or with NaN or infinity, errors <= 0, or ``x_range``
+        not a pair of numbers ``(low, high)``.
     """
-    x = as_array(x, "x", shape=(None,))
-    y = as_array(y, "y", shape=x.shape)
-    err = None if y_error is None else as_array(y_error, "y_error", shape=x.shape)
-    use = np.ones(x.size, dtype=bool) if x_range is None else (x >= x_range[0]) & (x <= x_range[1])
+    return _power_law(x, y, y_error, x_range, ("x", "y", "y_error", "x_range"))
+
+
+def _power_law(x, y, y_error, x_range, names):
+    """:func:`fit_power_law` with the caller's argument names (x, y, errors, range) in error messages."""
+    x_name, y_name, error_name, range_name = names
+    x = as_array(x, x_name, shape=(None,))
+    y = as_array(y, y_name, shape=x.shape)
+    err = None if y_error is None else as_array(y_error, error_name, shape=x.shape)
+    if x_range is None:
+        use = np.ones(x.size, dtype=bool)
+    else:
+        lo, hi = interval(x_range, range_name)
+        use = (x >= lo) & (x <= hi)
     need = 3 if err is None else 2
     if use.sum() < need:
         raise AnalysisError(f"power-law fit needs {need} or more points in the range {x_range}, got {int(use.sum())}")
     if np.any(x[use] <= 0) or np.any(y[use] <= 0):
-        raise AnalysisError("power-law fit needs positive x and y in the fit range")
+        raise AnalysisError(f"power-law fit needs positive {x_name} and {y_name} in the fit range")
     if err is not None and np.any(err[use] <= 0):
-        raise InputError("y_error: every error must be > 0")
+        raise InputError(f"{error_name}: every error must be > 0")
     sigma = None if err is None else err[use] / y[use]
-    slope, intercept, cov, chi2 = line_fit(np.log(x[use]), np.log(y[use]), sigma)
+    slope, intercept, cov, chi2 = line_fit(np.log(x[use]), np.log(y[use]), sigma, what="power-law fit")
     prefactor = np.exp(intercept)
     return PowerLawFit(exponent=slope, exponent_error=float(np.sqrt(cov[0, 0])),
                        prefactor=float(prefactor), prefactor_error=float(prefactor * np.sqrt(cov[1, 1])),
@@ -120,7 +134,7 @@ def nu_from_chain_size(n_beads, size, size_error=None, n_range=None):
     -------
     ExponentFit
     """
-    fit = fit_power_law(n_beads, size, size_error, n_range)
+    fit = _power_law(n_beads, size, size_error, n_range, ("n_beads", "size", "size_error", "n_range"))
     return ExponentFit(nu=fit.exponent, nu_error=fit.exponent_error, x_min=fit.x_min, x_max=fit.x_max, fit=fit)
 
 
@@ -143,7 +157,7 @@ def nu_from_internal_distances(s, r2, r2_error=None, s_range=None):
     -------
     ExponentFit
     """
-    fit = fit_power_law(s, r2, r2_error, s_range)
+    fit = _power_law(s, r2, r2_error, s_range, ("s", "r2", "r2_error", "s_range"))
     return ExponentFit(nu=fit.exponent / 2.0, nu_error=fit.exponent_error / 2.0,
                        x_min=fit.x_min, x_max=fit.x_max, fit=fit)
 
@@ -168,7 +182,7 @@ def nu_from_form_factor(q, p, q_range, p_error=None):
     ExponentFit
         ``nu = -1/a`` with a the fitted slope, error ``sigma_a / a^2``.
     """
-    fit = fit_power_law(q, p, p_error, q_range)
+    fit = _power_law(q, p, p_error, q_range, ("q", "p", "p_error", "q_range"))
     if fit.exponent >= 0:
         raise AnalysisError(f"form factor does not decrease over q in [{fit.x_min}, {fit.x_max}]: no power law")
     nu = -1.0 / fit.exponent

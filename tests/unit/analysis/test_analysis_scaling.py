@@ -5,7 +5,7 @@ import pytest
 
 from beadsim.analysis import (debye_function, fit_power_law, nu_from_chain_size, nu_from_form_factor,
                               nu_from_internal_distances)
-from beadsim.errors import AnalysisError
+from beadsim.errors import AnalysisError, InputError
 
 NU_SAW = 0.587597  # Clisby, Phys. Rev. Lett. 104, 055702 (2010)
 
@@ -68,3 +68,44 @@ def test_nu_from_debye_function_tail_is_one_half():
 def test_too_few_points_is_an_analysis_error():
     with pytest.raises(AnalysisError, match="needs 3 or more points"):
         fit_power_law([1.0, 2.0, 3.0], [1.0, 2.0, 3.0], x_range=(1.5, 2.5))
+
+
+def test_weighted_power_law_fit_equals_numpy_polyfit():
+    # reference: numpy.polyfit on (ln x, ln y) with weights 1/sigma_ln_y and cov="unscaled" (absolute errors);
+    # seed 103, 7 points, 3 % errors; both solve the same least-squares problem, so they agree to rounding
+    rng = np.random.default_rng(103)
+    x = np.geomspace(8, 512, 7)
+    y = 0.4 * x ** NU_SAW * (1 + 0.03 * rng.normal(size=x.size))
+    err = 0.03 * y
+    fit = fit_power_law(x, y, err)
+    coef, cov = np.polyfit(np.log(x), np.log(y), 1, w=y / err, cov="unscaled")
+    assert fit.exponent == pytest.approx(coef[0], rel=1e-12)
+    assert fit.prefactor == pytest.approx(np.exp(coef[1]), rel=1e-12)
+    assert fit.exponent_error == pytest.approx(np.sqrt(cov[0, 0]), rel=1e-10)
+
+
+@pytest.mark.parametrize("q_range", ["", {}, 0, "0", [[0, 1, 2], [2, 30]], (0.5, float("nan"))])
+def test_form_factor_window_must_be_a_pair_of_numbers(q_range):
+    q = np.geomspace(0.1, 10, 20)
+    with pytest.raises(InputError, match=r"q_range: expected a pair of numbers|q_range: expected \(low, high\)"):
+        nu_from_form_factor(q, q ** -1.7, q_range)
+
+
+def test_internal_distances_at_one_separation_have_no_slope():
+    # every point at s = 4: ln <R^2> against ln s is a vertical set, no straight line through it
+    with pytest.raises(AnalysisError, match="power-law fit: slope undefined, the 3 points share one abscissa"):
+        nu_from_internal_distances(np.full(3, 4.0), np.array([1.0, 2.0, 3.0]))
+
+
+def test_internal_distance_arrays_are_checked_by_name():
+    with pytest.raises(InputError, match=r"r2: expected shape \(3\), got \(2,\)"):
+        nu_from_internal_distances([1.0, 2.0, 3.0], [1.0, 2.0])
+    with pytest.raises(InputError, match="s: expected an array of float64, got dict"):
+        nu_from_internal_distances({}, [1.0, 2.0])
+
+
+def test_power_law_errors_out_of_floating_point_range_are_refused():
+    # relative errors of 1e-200 square to zero: weights 1/sigma^2 would be infinite
+    x = np.array([1.0, 2.0, 4.0])
+    with pytest.raises(AnalysisError, match=r"power-law fit: the weights 1/sigma\^2 must be finite and > 0"):
+        fit_power_law(x, x ** 0.5, 1e-200 * x ** 0.5)
