@@ -24,7 +24,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .._validate import as_array, positive
+from .._validate import as_array, positive, positive_int
 from ..errors import AnalysisError, InputError
 from ..kernels.scattering import debye_sum, linear_binned_pair_distances
 from ._common import check_chains, check_length_scale, check_positions, group_by_length, line_fit
@@ -54,8 +54,18 @@ def histogram_error_bound(q, bin_width, n_beads):
     -------
     ndarray, shape (n_q,), float64
         ``(n_beads - 1) / n_beads * (q * bin_width)**2 / 24``.
+
+    Raises
+    ------
+    InputError
+        ``q`` not a finite 1-D array of values >= 0, ``bin_width`` not a finite number > 0,
+        or ``n_beads`` not an integer >= 1.
     """
-    q = np.asarray(q, dtype=np.float64)
+    q = as_array(q, "q", shape=(None,))
+    if np.any(q < 0):
+        raise InputError(f"q: scattering vector magnitudes must be >= 0, got minimum {q.min():g}")
+    bin_width = positive(bin_width, "bin_width")
+    n_beads = positive_int(n_beads, "n_beads")
     return (n_beads - 1) / n_beads * (q * bin_width) ** 2 / 24.0
 
 
@@ -212,26 +222,33 @@ def guinier_rg(q, p, qrg_max=1.0, max_iterations=20):
     AnalysisError
         Fewer than three q values fall in the Guinier range, or the curve does
         not decrease there.
+    InputError
+        ``q`` not increasing and > 0, ``p`` not of the same shape, NaN or
+        infinity in either, ``qrg_max`` not > 0 or ``max_iterations`` not >= 1.
     """
     q = as_array(q, "q", shape=(None,))
     p = as_array(p, "p", shape=q.shape)
-    use = (q <= q[min(2, q.size - 1)]) & (p > 0)
+    qrg_max = positive(qrg_max, "qrg_max")
+    max_iterations = positive_int(max_iterations, "max_iterations")
+    if np.any(q <= 0) or np.any(np.diff(q) <= 0):
+        raise InputError("q: expected increasing scattering vector magnitudes > 0")
+    use = (np.arange(q.size) < 3) & (p > 0)  # start from the three smallest q
     for _ in range(max_iterations):
         if use.sum() < 3:
             raise AnalysisError(f"Guinier fit needs three or more q values with q Rg < {qrg_max}; "
                                 f"{int(use.sum())} available (extend q to smaller values)")
-        slope, _, cov, _ = line_fit(q[use] ** 2, np.log(p[use]))
+        fitted = use
+        slope, _, cov, _ = line_fit(q[fitted] ** 2, np.log(p[fitted]), what="Guinier fit")
         if slope >= 0:
             raise AnalysisError("Guinier fit: ln P(q) does not decrease with q^2 at small q")
         rg = np.sqrt(-3.0 * slope)
-        new = (q * rg < qrg_max) & (p > 0)
-        if np.array_equal(new, use):
+        use = (q * rg < qrg_max) & (p > 0)
+        if np.array_equal(use, fitted):
             break
-        use = new
-    # d Rg / d slope = -3 / (2 Rg)
+    # d Rg / d slope = -3 / (2 Rg); the range reported is the one of the last fit
     rg_error = 1.5 / rg * np.sqrt(cov[0, 0])
-    return GuinierFit(rg=float(rg), rg_error=float(rg_error), q_min=float(q[use].min()),
-                      q_max=float(q[use].max()), n_points=int(use.sum()))
+    return GuinierFit(rg=float(rg), rg_error=float(rg_error), q_min=float(q[fitted].min()),
+                      q_max=float(q[fitted].max()), n_points=int(fitted.sum()))
 
 
 @dataclass(frozen=True)

@@ -7,6 +7,7 @@ import pytest
 
 from beadsim.analysis import (debye_function, form_factor, guinier_rg, histogram_error_bound, kratky,
                               structure_factor)
+from beadsim.errors import AnalysisError, InputError
 from beadsim.kernels.scattering import (debye_sum, debye_sum_reference, linear_binned_pair_distances,
                                         linear_binned_pair_distances_reference)
 
@@ -99,6 +100,43 @@ def test_guinier_recovers_rg_from_exact_guinier_law():
     fit = guinier_rg(q, np.exp(-(q * rg) ** 2 / 3))
     assert abs(fit.rg - rg) < 1e-10
     assert fit.q_max * rg < 1.0 and fit.n_points >= 3
+
+
+def test_guinier_reports_the_range_of_its_last_fit():
+    # one iteration fits the three smallest q only; the exact Guinier law makes that fit exact, and the
+    # reported window must be those three points (not the window the fitted Rg would select next)
+    rg = 2.5
+    q = np.linspace(0.01, 1.0, 100)
+    fit = guinier_rg(q, np.exp(-(q * rg) ** 2 / 3), max_iterations=1)
+    assert (fit.n_points, fit.q_min, fit.q_max) == (3, q[0], q[2])
+    assert abs(fit.rg - rg) < 1e-9
+
+
+@pytest.mark.parametrize("q, p, kwargs, error, message", [
+    ([], [], {}, AnalysisError, "Guinier fit needs three or more q values with q Rg < 1.0; 0 available"),
+    ([0.1, 0.3, 0.2, 0.4], [0.9, 0.8, 0.7, 0.6], {}, InputError, "q: expected increasing scattering vector"),
+    ([0.0, 0.1, 0.2, 0.3], [1.0, 0.9, 0.8, 0.7], {}, InputError, "q: expected increasing scattering vector"),
+    ([0.1, 0.2, 0.3], [0.9, 0.8], {}, InputError, r"p: expected shape \(3\), got \(2,\)"),
+    ([0.1, 0.2, 0.3], [0.9, 0.8, 0.7], {"max_iterations": 0}, InputError, "max_iterations: must be an integer >= 1"),
+    ([0.1, 0.2, 0.3], [0.9, 0.8, 0.7], {"qrg_max": -1.0}, InputError, "qrg_max: must be a finite number > 0"),
+])
+def test_guinier_refuses_bad_input_with_beadsim_errors(q, p, kwargs, error, message):
+    with pytest.raises(error, match=message):
+        guinier_rg(q, p, **kwargs)
+
+
+@pytest.mark.parametrize("q, bin_width, n_beads, message", [
+    ({}, 0.1, 10, "q: expected an array of float64, got dict"),
+    ([[0, 1, 2], [2, 30]], 0.1, 10, "q: expected an array of float64, got list"),
+    ([-1.0, 2.0], 0.1, 10, "q: scattering vector magnitudes must be >= 0"),
+    ([1.0, 2.0], "", 10, "bin_width: expected a number, got ''"),
+    ([1.0, 2.0], None, 10, "bin_width: expected a number, got None"),
+    ([1.0, 2.0], 0.1, 0, "n_beads: must be an integer >= 1, got 0"),
+    ([1.0, 2.0], 0.1, None, "n_beads: expected an integer, got None"),
+])
+def test_histogram_error_bound_refuses_bad_input(q, bin_width, n_beads, message):
+    with pytest.raises(InputError, match=message):
+        histogram_error_bound(q, bin_width, n_beads)
 
 
 def test_structure_factor_of_simple_cubic_crystal_has_bragg_peak():
