@@ -26,7 +26,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .._validate import as_array
-from ..errors import InputError
+from ..errors import AnalysisError, InputError
 from ..kernels.scattering import inverse_distance_sum
 from ._common import check_chains, check_positions, per_chain
 from .trajectory import find_chains, trajectory_positions
@@ -179,14 +179,25 @@ def hydrodynamic_radius(positions, chains):
     -------
     ndarray, shape (n_frames, n_chains), float64
         ``N^2 / sum_{i != j} 1/r_ij``, unit L.
+
+    Raises
+    ------
+    AnalysisError
+        Two beads of a chain coincide in some frame (1/r_ij is infinite); the
+        message names the first such frame and chain.
     """
     x, chains, _ = _check(positions, chains)
 
-    def rh(xg, index):
+    def inverse_rh(xg, index):
         n = xg.shape[2]
-        return n * n / (2.0 * inverse_distance_sum(np.ascontiguousarray(xg)))
+        return 2.0 * inverse_distance_sum(np.ascontiguousarray(xg)) / (n * n)
 
-    return per_chain(x, chains, rh)
+    inverse = per_chain(x, chains, inverse_rh)
+    if not np.all(np.isfinite(inverse)):
+        frame, chain = (int(i) for i in np.argwhere(~np.isfinite(inverse))[0])
+        raise AnalysisError(f"positions: two beads of chain {chain} (first bead {chains[chain][0]}) coincide in "
+                            f"frame {frame}, so its hydrodynamic radius (sum of 1/r_ij) is undefined")
+    return 1.0 / inverse
 
 
 def mean_square_ratio(re, rg):

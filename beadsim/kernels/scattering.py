@@ -120,12 +120,12 @@ def inverse_distance_sum(positions):
     Parameters
     ----------
     positions : ndarray, shape (n_frames, n_chains, n_beads, 3), float64
-        Bead positions, length unit L; no two beads of a chain may coincide.
+        Bead positions, length unit L.
 
     Returns
     -------
     ndarray, shape (n_frames, n_chains), float64
-        Sum over distinct pairs, unit 1/L.
+        Sum over distinct pairs, unit 1/L; infinite where two beads of a chain coincide.
     """
     n_frames, n_chains, n_beads, _ = positions.shape
     out = np.zeros((n_frames, n_chains))
@@ -137,7 +137,8 @@ def inverse_distance_sum(positions):
                     dx = positions[f, c, j, 0] - positions[f, c, i, 0]
                     dy = positions[f, c, j, 1] - positions[f, c, i, 1]
                     dz = positions[f, c, j, 2] - positions[f, c, i, 2]
-                    s += 1.0 / np.sqrt(dx * dx + dy * dy + dz * dz)
+                    r = np.sqrt(dx * dx + dy * dy + dz * dz)
+                    s += 1.0 / r if r > 0.0 else np.inf
             out[f, c] = s
     return out
 
@@ -147,4 +148,5 @@ def inverse_distance_sum_reference(positions):
     diff = positions[:, :, :, None, :] - positions[:, :, None, :, :]
     r = np.sqrt(np.sum(diff * diff, axis=-1))
     upper = np.triu_indices(positions.shape[2], k=1)
-    return (1.0 / r[:, :, upper[0], upper[1]]).sum(axis=2)
+    with np.errstate(divide="ignore"):
+        return (1.0 / r[:, :, upper[0], upper[1]]).sum(axis=2)

@@ -4,9 +4,9 @@ import mdtraj
 import numpy as np
 import pytest
 
-from beadsim.analysis import (end_to_end_distance, gyration_tensor, hydrodynamic_radius, mean_square_ratio,
-                              radius_of_gyration, shape_descriptors)
-from beadsim.errors import InputError
+from beadsim.analysis import (compute_hydrodynamic_radius, end_to_end_distance, gyration_tensor, hydrodynamic_radius,
+                              mean_square_ratio, radius_of_gyration, shape_descriptors)
+from beadsim.errors import AnalysisError, InputError
 from beadsim.kernels.scattering import inverse_distance_sum, inverse_distance_sum_reference
 
 
@@ -94,6 +94,27 @@ def test_regular_octahedron_is_spherical():
 def test_kirkwood_kernel_equals_numpy_twin(gaussian_chains):
     x = gaussian_chains(31, 6, 40).reshape(3, 2, 40, 3)
     np.testing.assert_allclose(inverse_distance_sum(x), inverse_distance_sum_reference(x), rtol=1e-10)
+
+
+def test_kirkwood_kernel_and_twin_give_infinity_for_coincident_beads():
+    # 1/r_ij diverges when two beads coincide; both routes must say so rather than fail or return a number
+    x = np.zeros((1, 1, 3, 3))
+    x[0, 0, 2, 0] = 1.0  # beads 0 and 1 coincide, bead 2 apart
+    assert np.isinf(inverse_distance_sum(x)[0, 0]) and np.isinf(inverse_distance_sum_reference(x)[0, 0])
+
+
+def test_hydrodynamic_radius_names_frame_and_chain_with_coincident_beads(random_system):
+    x, chains = random_system
+    x = x.copy()
+    x[7, 23] = x[7, 30]  # two beads of chain 1 (beads 20..44) coincide in frame 7
+    with pytest.raises(AnalysisError, match=r"two beads of chain 1 \(first bead 20\) coincide in frame 7"):
+        hydrodynamic_radius(x, chains)
+
+
+def test_compute_hydrodynamic_radius_of_collapsed_trajectory_is_an_analysis_error(chain_topology):
+    traj = mdtraj.Trajectory(np.zeros((1, 2, 3), dtype=np.float32), chain_topology([2]))
+    with pytest.raises(AnalysisError, match="coincide in frame 0"):
+        compute_hydrodynamic_radius(traj)
 
 
 @pytest.mark.parametrize("chains, message", [
