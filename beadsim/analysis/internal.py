@@ -11,7 +11,8 @@ centroid first to keep the cancellation harmless.
 
 import numpy as np
 
-from ..errors import AnalysisError
+from .._validate import as_array
+from ..errors import AnalysisError, InputError
 from ._common import check_chains, check_positions, group_by_length
 from .trajectory import find_chains, trajectory_positions
 
@@ -79,11 +80,20 @@ def effective_exponent(s, r2):
     -------
     ndarray, shape (m,), float64
         Local exponent (one-sided differences at the ends).
+
+    Raises
+    ------
+    InputError
+        ``s`` or ``r2`` not finite 1-D arrays of one shape, or ``s`` not increasing.
+    AnalysisError
+        Fewer than two separations, or a separation or ``<R^2(s)>`` <= 0 (no logarithm).
     """
-    s = np.asarray(s, dtype=np.float64)
-    r2 = np.asarray(r2, dtype=np.float64)
-    if s.ndim != 1 or s.shape != r2.shape or s.size < 2 or np.any(s <= 0) or np.any(r2 <= 0):
+    s = as_array(s, "s", shape=(None,))
+    r2 = as_array(r2, "r2", shape=s.shape)
+    if s.size < 2 or np.any(s <= 0) or np.any(r2 <= 0):
         raise AnalysisError("effective_exponent: need two or more positive separations with positive <R^2(s)>")
+    if np.any(np.diff(np.log(s)) <= 0):
+        raise InputError("s: separations must increase (and stay distinct in ln s)")
     return 0.5 * np.gradient(np.log(r2), np.log(s))
 
 

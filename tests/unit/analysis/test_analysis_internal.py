@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from beadsim.analysis import effective_exponent, internal_distances
-from beadsim.errors import AnalysisError
+from beadsim.errors import AnalysisError, InputError
 
 
 def test_fft_route_equals_direct_pair_average(gaussian_chains):
@@ -39,3 +39,17 @@ def test_effective_exponent_of_exact_power_law():
 def test_effective_exponent_refuses_zero_separation():
     with pytest.raises(AnalysisError, match="positive separations"):
         effective_exponent(np.arange(0.0, 5.0), np.arange(0.0, 5.0))
+
+
+@pytest.mark.parametrize("s, r2, message", [
+    ({}, None, "s: expected an array of float64, got dict"),
+    ([[0, 1, 2], [2, 30]], None, "s: expected an array of float64, got list"),
+    ([1.0, 2.0, 3.0], {}, "r2: expected an array of float64, got dict"),
+    ([1.0, 2.0, 3.0], [1.0, 2.0], r"r2: expected shape \(3\), got \(2,\)"),
+    ([1.0, 2.0, 3.0], [1.0, np.nan, 3.0], "r2: contains NaN or infinity"),
+    ([1.0, 3.0, 2.0], [1.0, 2.0, 3.0], "s: separations must increase"),
+    ([1.0, 1.0, 2.0], [1.0, 2.0, 3.0], "s: separations must increase"),
+])
+def test_effective_exponent_names_the_bad_argument(s, r2, message):
+    with pytest.raises(InputError, match=message):
+        effective_exponent(s, r2)
