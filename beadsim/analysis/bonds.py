@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .._validate import as_array
+from .._validate import as_array, positive
 from ..errors import AnalysisError, InputError
 from ._common import check_chains, check_positions, line_fit
 from .trajectory import find_chains, trajectory_positions
@@ -158,7 +158,7 @@ def persistence_length(correlation, mean_bond_length, cutoff=np.exp(-2.0)):
     mean_bond_length : float
         ``<b>``, unit L.
     cutoff : float
-        Fit only the leading points with C(s) > cutoff.
+        Fit only the leading points with C(s) > cutoff; 0 < cutoff < 1.
 
     Returns
     -------
@@ -167,22 +167,30 @@ def persistence_length(correlation, mean_bond_length, cutoff=np.exp(-2.0)):
     Raises
     ------
     AnalysisError
-        C(1) <= 0 (flexible chain with anticorrelated neighbouring bonds): no
-        exponential decay to fit.
+        Fewer than two values C(0), C(1), or C(1) <= 0 (flexible chain with
+        anticorrelated neighbouring bonds): no exponential decay to fit.
+    InputError
+        ``correlation`` not a finite 1-D array, ``mean_bond_length`` not a finite
+        number > 0, or ``cutoff`` outside (0, 1).
     """
     c = as_array(correlation, "correlation", shape=(None,))
-    if c.size < 2 or c[1] <= 0:
+    mean_bond_length = positive(mean_bond_length, "mean_bond_length")
+    cutoff = positive(cutoff, "cutoff")
+    if cutoff >= 1:
+        raise InputError(f"cutoff: must lie between 0 and 1 (exclusive), got {cutoff!r}")
+    if c.size < 2:
+        raise AnalysisError(f"persistence length undefined: correlation holds {c.size} value(s), "
+                            f"C(0) and at least C(1) are needed (chains of three or more beads)")
+    if c[1] <= 0:
         raise AnalysisError("persistence length undefined: neighbouring bonds are not positively correlated "
                             "(C(1) <= 0), so the correlation shows no exponential decay")
-    if mean_bond_length <= 0:
-        raise InputError(f"mean_bond_length: must be > 0, got {mean_bond_length!r}")
     below = np.flatnonzero(c <= cutoff)
     s_max = max(1, (int(below[0]) if below.size else c.size) - 1)
     s = np.arange(s_max + 1, dtype=np.float64)
     if s_max == 1:
         decay, error = -np.log(c[1]), float("nan")
     else:
-        slope, _, cov, _ = line_fit(s, np.log(c[:s_max + 1]))
+        slope, _, cov, _ = line_fit(s, np.log(c[:s_max + 1]), what="persistence-length fit")
         decay, error = -slope, np.sqrt(cov[0, 0])
     if not decay > 0:  # bonds fully correlated at every separation: no decay, no finite length
         raise AnalysisError("persistence length undefined: the bond correlation does not decay (C(s) = 1), "

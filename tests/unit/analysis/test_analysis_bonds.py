@@ -5,7 +5,7 @@ import pytest
 from scipy import stats
 
 from beadsim.analysis import bond_angles, bond_correlation, bond_lengths, distribution, persistence_length
-from beadsim.errors import AnalysisError
+from beadsim.errors import AnalysisError, InputError
 
 
 def freely_rotating_chain(rng, n_chains, n_beads, cos_theta):
@@ -68,6 +68,25 @@ def test_persistence_length_of_exact_geometric_decay():
 def test_persistence_length_refuses_anticorrelated_bonds():
     with pytest.raises(AnalysisError, match="C\\(1\\) <= 0"):
         persistence_length(np.array([1.0, -0.1, 0.02]), 1.0)
+
+
+@pytest.mark.parametrize("correlation, mean_bond_length, kwargs, message", [
+    ([0, 1], None, {}, "mean_bond_length: expected a number, got None"),
+    ([0, 1], np.array([], dtype=float), {}, "mean_bond_length: expected a number"),
+    ([1.0, 0.5], -1.0, {}, "mean_bond_length: must be a finite number > 0"),
+    ([1.0, 0.5], 1.0, {"cutoff": 1.5}, "cutoff: must lie between 0 and 1"),
+    ([1.0, 0.5], 1.0, {"cutoff": "x"}, "cutoff: expected a number"),
+    ({}, 1.0, {}, "correlation: expected an array of float64, got dict"),
+])
+def test_persistence_length_names_the_bad_argument(correlation, mean_bond_length, kwargs, message):
+    with pytest.raises(InputError, match=message):
+        persistence_length(correlation, mean_bond_length, **kwargs)
+
+
+def test_persistence_length_of_a_single_value_is_an_analysis_error():
+    # only C(0): chains of two beads have one bond each, so no decay can be measured
+    with pytest.raises(AnalysisError, match=r"correlation holds 1 value\(s\)"):
+        persistence_length([1.0], 1.0)
 
 
 def test_distribution_is_a_normalised_density():
