@@ -18,6 +18,7 @@ averages), ``internal_distances.csv``, ``form_factor.csv``, ``bonds.csv``,
 import json
 import logging
 import math
+import numbers
 import os
 
 import numpy as np
@@ -298,6 +299,37 @@ def _fmt(value):
     return "-" if value is None else f"{value:.5g}"
 
 
+_SUMMARY_KEYS = ("file", "n_frames", "n_chains", "chain_lengths", "length_unit", "quantities", "fits", "skipped")
+_QUANTITY_KEYS = ("mean", "error", "n_independent", "unit")
+
+
+def _check_summary(summary):
+    """Raise InputError unless ``summary`` has the layout :func:`analyze_file` returns."""
+    origin = "expected the dict returned by analyze_file (or read back from summary.json)"
+    if not isinstance(summary, dict):
+        raise InputError(f"summary: {origin}, got {type(summary).__name__}")
+    missing = [key for key in _SUMMARY_KEYS if key not in summary]
+    if missing:
+        raise InputError(f"summary: missing key(s) {', '.join(missing)}; {origin}")
+    for key in ("quantities", "fits", "skipped"):
+        if not isinstance(summary[key], dict):
+            raise InputError(f"summary['{key}']: expected a dict, got {type(summary[key]).__name__}")
+    if not isinstance(summary["chain_lengths"], (list, tuple)):
+        raise InputError(f"summary['chain_lengths']: expected a list, got {type(summary['chain_lengths']).__name__}")
+    for name, quantity in summary["quantities"].items():
+        if not (isinstance(name, str) and isinstance(quantity, dict) and all(k in quantity for k in _QUANTITY_KEYS)):
+            raise InputError(f"summary['quantities'][{name!r}]: expected a name (str) mapped to a dict with keys "
+                             f"{', '.join(_QUANTITY_KEYS)}")
+        for key in ("mean", "error", "n_independent"):
+            value = quantity[key]
+            if value is not None and not isinstance(value, numbers.Real):
+                raise InputError(f"summary['quantities'][{name!r}][{key!r}]: expected a number or None, "
+                                 f"got {value!r}")
+    for name, fit in summary["fits"].items():
+        if not isinstance(fit, dict):
+            raise InputError(f"summary['fits'][{name!r}]: expected a dict, got {type(fit).__name__}")
+
+
 def format_table(summary):
     """Plain-text table of an :func:`analyze_file` summary.
 
@@ -311,7 +343,14 @@ def format_table(summary):
     str
         One line per quantity (mean, standard error, independent samples, unit),
         then fits and skipped quantities with their reasons.
+
+    Raises
+    ------
+    InputError
+        ``summary`` lacks a key or holds a value of another type than
+        :func:`analyze_file` writes; the message names the key.
     """
+    _check_summary(summary)
     lines = [f"{summary['file']}: {summary['n_frames']} frames, {summary['n_chains']} chains "
              f"of {', '.join(map(str, summary['chain_lengths']))} beads; lengths in {summary['length_unit']}",
              "",

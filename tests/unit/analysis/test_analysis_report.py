@@ -93,3 +93,32 @@ def test_short_run_reports_reasons_instead_of_errors(run_file, tmp_path):
 def test_figure_path_must_be_png_or_svg(tmp_path):
     with pytest.raises(InputError, match="figure.jpg: figure files must end in .png or .svg"):
         plots.histogram(np.arange(3.0), np.ones(3), tmp_path / "figure.jpg", "bond length [nm]")
+
+
+def _minimal_summary(**changes):
+    summary = {"file": "run.h5", "n_frames": 3, "n_chains": 1, "chain_lengths": [8], "length_unit": "nm",
+               "quantities": {"rg_squared": {"mean": 1.5, "error": 0.1, "n_independent": 3, "unit": "nm^2"}},
+               "fits": {}, "skipped": {}}
+    summary.update(changes)
+    return summary
+
+
+def test_format_table_of_minimal_summary():
+    assert "rg_squared" in format_table(_minimal_summary()) and "1.5" in format_table(_minimal_summary())
+
+
+@pytest.mark.parametrize("summary, message", [
+    (None, "summary: expected the dict returned by analyze_file .*, got NoneType"),
+    ({}, "summary: missing key\\(s\\) file, n_frames, n_chains, chain_lengths, length_unit, quantities, fits, skipped"),
+    (_minimal_summary(quantities=None), "summary\\['quantities'\\]: expected a dict, got NoneType"),
+    (_minimal_summary(skipped=3), "summary\\['skipped'\\]: expected a dict, got int"),
+    (_minimal_summary(chain_lengths=5), "summary\\['chain_lengths'\\]: expected a list, got int"),
+    (_minimal_summary(quantities={"rg_squared": {"mean": 1.0}}),
+     "summary\\['quantities'\\]\\['rg_squared'\\]: expected a name \\(str\\) mapped to a dict with keys mean"),
+    (_minimal_summary(quantities={"rg_squared": {"mean": "big", "error": None, "n_independent": 3, "unit": "1"}}),
+     "summary\\['quantities'\\]\\['rg_squared'\\]\\['mean'\\]: expected a number or None, got 'big'"),
+    (_minimal_summary(fits={"guinier_rg": 2.0}), "summary\\['fits'\\]\\['guinier_rg'\\]: expected a dict, got float"),
+])
+def test_format_table_names_the_malformed_key(summary, message):
+    with pytest.raises(InputError, match=message):
+        format_table(summary)
