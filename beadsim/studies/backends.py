@@ -271,15 +271,20 @@ class DaskCluster:
         return future
 
     def shutdown(self, cancel=False):
-        """Disconnect (and stop a local cluster); with ``cancel`` drop this client's unfinished tasks."""
-        if self._client is not None:
+        """Disconnect (and stop a local cluster); with ``cancel`` drop this client's unfinished tasks.
+
+        A step that times out or finds its connection gone (on a heavily loaded machine closing
+        can take longer than dask waits) is logged, not raised, and the next step is still taken:
+        callers write their results before shutting down, so nothing is lost.
+        """
+        client, self._client = self._client, None
+        cluster, self._cluster = self._cluster, None
+        if client is not None:
             if cancel:
-                self._client.cancel(list(self._futures))
-            self._client.close()
-            self._client = None
-        if self._cluster is not None:
-            self._cluster.close()
-            self._cluster = None
+                _close_step("cancelling the unfinished tasks", client.cancel, list(self._futures))
+            _close_step("closing the client", client.close)
+        if cluster is not None:
+            _close_step("stopping the local cluster", cluster.close)
 
     def restart(self):
         """Restart every worker process (not needed after a worker dies: dask replaces it and reruns its task)."""
@@ -292,6 +297,15 @@ class DaskCluster:
         return wait(futures, return_when="FIRST_COMPLETED").done
 
     broken_errors = ()
+
+
+def _close_step(what, fn, *args):
+    """Run one step of a dask shutdown; log a timeout or a lost connection instead of raising it."""
+    try:
+        fn(*args)
+    except (TimeoutError, OSError) as exc:  # dask's CommClosedError is an OSError
+        log.warning("dask shutdown: %s failed (%s: %s); carrying on, the finished tasks' results are in hand", what,
+                    type(exc).__name__, exc)
 
 
 BACKENDS = {"local": LocalPool, "dask": DaskCluster}

@@ -586,13 +586,24 @@ def run_ladder(ladder, model, out, *, backend=None, progress=True, analyze=True,
                     write_checkpoint(out / CHECKPOINT_FILE, state.arrays(),
                                      {"round": state.round, "identity": identity, "beadsim": __version__})
                 bar.update(1)
+            # everything is written before the workers are stopped: a slow or failing shutdown (a dask
+            # timeout on a loaded machine) can then cost no result and no summary
+            bar.close()
+            outputs.close()
+            summary = _write_summary(out, ladder, model, state, analyze,
+                                     {"rounds_this_session": int(state.round - first_round),
+                                      "wall_seconds_this_session": round(time.perf_counter() - started, 2),
+                                      "workers": runner.slots})
     finally:
         bar.close()
         outputs.close()
-    wall = time.perf_counter() - started
-    summary = {"rounds_completed": int(state.round), "cpu_seconds": round(float(state.cpu_seconds), 2),
-               "rounds_this_session": int(state.round - first_round),
-               "wall_seconds_this_session": round(wall, 2), "workers": runner.slots,
+    return summary
+
+
+def _write_summary(out, ladder, model, state, analyze, session):
+    """Exchange statistics (and, with ``analyze``, :func:`analyze_ladder`) into ``summary.json``; return them."""
+    temps = np.array(ladder["temperatures"])
+    summary = {"rounds_completed": int(state.round), "cpu_seconds": round(float(state.cpu_seconds), 2), **session,
                "temperatures": temps.tolist()}
     summary.update(exchange_statistics(state, temps))
     if analyze:

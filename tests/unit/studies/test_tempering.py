@@ -222,6 +222,58 @@ def test_local_pool_gives_the_same_ladder_as_one_process(tmp_path):
         assert (tmp_path / "one" / name).read_text() == (tmp_path / "pool" / name).read_text()
 
 
+def test_ladder_on_dask_writes_results_and_summary_when_the_shutdown_times_out(tmp_path, monkeypatch, caplog):
+    """A local dask cluster whose closing stops the workers but then reports a timeout (as one did under heavy
+    load): the ladder's files equal a one-process run, summary.json is written, and the timeout is logged."""
+    from distributed import LocalCluster
+
+    from beadsim.studies.backends import DaskCluster
+
+    real_close = LocalCluster.close
+
+    def close_then_time_out(self, *args, **kwargs):
+        real_close(self, *args, **kwargs)
+        raise TimeoutError("simulated slow shutdown")
+
+    monkeypatch.setattr(LocalCluster, "close", close_then_time_out)
+    ladder, model = read_ladder(write_ladder(tmp_path, HARMONIC_LADDER.format(rounds=4, seed=9)))
+    run_ladder(ladder, model, tmp_path / "one", progress=False, analyze=False)
+    with caplog.at_level("WARNING", logger="beadsim.studies.backends"):
+        summary = run_ladder(ladder, model, tmp_path / "dask", backend=DaskCluster(1, cluster="local"),
+                             progress=False, analyze=False)
+    assert summary["workers"] == 1
+    assert json.loads((tmp_path / "dask" / "summary.json").read_text())["rounds_completed"] == 24
+    assert "simulated slow shutdown" in caplog.text
+    for name in [EXCHANGE_FILE] + [f"{rung_folder(k)}/{SAMPLE_FILE}" for k in range(4)]:
+        assert (tmp_path / "one" / name).read_text() == (tmp_path / "dask" / name).read_text()
+
+
+def test_dask_shutdown_takes_every_step_when_one_times_out(caplog):
+    from beadsim.studies.backends import DaskCluster
+
+    calls = []
+
+    class Stub:
+        def __init__(self, name, error=None):
+            self.name, self.error = name, error
+
+        def cancel(self, futures):
+            calls.append(f"{self.name}.cancel")
+
+        def close(self):
+            calls.append(f"{self.name}.close")
+            if self.error:
+                raise self.error
+
+    backend = DaskCluster(1, cluster="local")
+    backend._client, backend._cluster = Stub("client", TimeoutError("client close")), Stub("cluster", OSError("gone"))
+    with caplog.at_level("WARNING", logger="beadsim.studies.backends"):
+        backend.shutdown(cancel=True)
+    assert calls == ["client.cancel", "client.close", "cluster.close"]
+    assert "client close" in caplog.text and "gone" in caplog.text
+    assert backend._client is None and backend._cluster is None
+
+
 def test_output_folder_of_another_ladder_is_refused_and_kept(tmp_path):
     ladder, model = read_ladder(write_ladder(tmp_path, HARMONIC_LADDER.format(rounds=2, seed=1)))
     run_ladder(ladder, model, tmp_path / "out", progress=False, analyze=False)
