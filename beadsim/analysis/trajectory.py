@@ -14,7 +14,8 @@ import numpy as np
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import breadth_first_order, connected_components
 
-from ..errors import AnalysisError
+from .._validate import as_array
+from ..errors import AnalysisError, InputError
 from ..io.safety import refusing_pickles
 from ._common import check_length_scale, check_positions
 
@@ -184,10 +185,26 @@ def unwrap_chains(positions, topology, box_vectors):
     -------
     ndarray, shape (n_frames, n_beads, 3), float64
         Unwrapped copy; beads in no chain are left where they were.
+
+    Raises
+    ------
+    InputError
+        ``positions`` or ``box_vectors`` of the wrong shape, empty, not finite,
+        or a box of zero volume.
+    AnalysisError
+        ``topology`` not an mdtraj.Topology with bonds, or with another number of atoms than beads.
     """
     x = check_positions(positions).copy()
+    if x.shape[0] == 0:
+        raise InputError("positions: expected one or more frames, got none")
     if not isinstance(topology, mdtraj.Topology):
         raise AnalysisError(f"topology: expected an mdtraj.Topology, got {type(topology).__name__}")
+    if topology.n_atoms != x.shape[1]:
+        raise AnalysisError(f"topology: has {topology.n_atoms} atoms but positions hold {x.shape[1]} beads")
+    box_vectors = as_array(box_vectors, "box_vectors", shape=(x.shape[0], 3, 3))
+    flat = np.flatnonzero(np.linalg.det(box_vectors) == 0)
+    if flat.size:
+        raise InputError(f"box_vectors: the box of frame {flat[0]} has zero volume (linearly dependent vectors)")
     graph = _bond_graph(topology)
     n_comp, labels = connected_components(graph, directed=False)
     depth = np.full(x.shape[1], -1, dtype=np.int64)

@@ -4,8 +4,8 @@ import mdtraj
 import numpy as np
 import pytest
 
-from beadsim.analysis import compute_rg, find_chains, load_trajectory, trajectory_positions
-from beadsim.errors import AnalysisError
+from beadsim.analysis import compute_rg, find_chains, load_trajectory, trajectory_positions, unwrap_chains
+from beadsim.errors import AnalysisError, InputError
 
 
 @pytest.fixture
@@ -123,3 +123,15 @@ def test_rg_of_wrapped_periodic_trajectory_matches_mdtraj_on_unwrapped(periodic_
 def test_length_scale_reports_in_sigma(periodic_walks):
     _, traj = periodic_walks(seed=5, n_frames=4, chain_lengths=[10], box=5.0)
     np.testing.assert_allclose(compute_rg(traj, length_scale=0.5), compute_rg(traj) / 0.5, rtol=1e-12)
+
+
+@pytest.mark.parametrize("positions, box_vectors, error, message", [
+    (np.zeros((2, 12, 3)), "abc", InputError, "box_vectors: expected an array of float64, got str"),
+    (np.zeros((2, 12, 3)), None, InputError, r"box_vectors: expected shape \(2, 3, 3\), got \(1,\)"),
+    (np.zeros((2, 12, 3)), np.zeros((2, 3, 3)), InputError, "box_vectors: the box of frame 0 has zero volume"),
+    (np.zeros((0, 12, 3)), np.zeros((0, 3, 3)), InputError, "positions: expected one or more frames, got none"),
+    (np.zeros((1, 2, 3)), np.eye(3)[None], AnalysisError, "topology: has 12 atoms but positions hold 2 beads"),
+])
+def test_unwrap_chains_refuses_inconsistent_arguments(small_traj, positions, box_vectors, error, message):
+    with pytest.raises(error, match=message):
+        unwrap_chains(positions, small_traj.topology, box_vectors)
