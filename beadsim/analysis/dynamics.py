@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .._validate import as_array, positive, positive_int
+from .._validate import as_array, interval, positive, positive_int
 from ..errors import AnalysisError, InputError
 from ._common import check_chains, check_positions, line_fit
 from .size import end_to_end_vector
@@ -28,6 +28,13 @@ def _autocorrelation_sum(v):
     n = v.shape[0]
     spectrum = np.fft.rfft(v, n=2 * n, axis=0)
     return np.fft.irfft(np.sum(spectrum * spectrum.conj(), axis=-1).real, n=2 * n, axis=0)[:n]
+
+
+def _frames(series, name):
+    """Return ``series`` (n_frames, ...) if it holds at least one frame, else raise InputError."""
+    if series.shape[0] == 0:
+        raise InputError(f"{name}: expected one or more frames, got shape {series.shape}")
+    return series
 
 
 def mean_square_displacement(paths):
@@ -43,7 +50,7 @@ def mean_square_displacement(paths):
     ndarray, shape (n_frames, n_paths), float64
         MSD at lags 0 .. n_frames-1 frames, unit L^2.
     """
-    r = as_array(paths, "paths", shape=(None, None, 3))
+    r = _frames(as_array(paths, "paths", shape=(None, None, 3)), "paths")
     r = r - r.mean(axis=0)
     n = r.shape[0]
     sq = np.einsum("tpa,tpa->tp", r, r)
@@ -149,11 +156,15 @@ def diffusion_coefficient(lag_times, msd, fit_range=None):
     """
     t = as_array(lag_times, "lag_times", shape=(None,))
     msd = as_array(msd, "msd", shape=(t.size, None))
-    lo, hi = (0.1 * t[-1], 0.5 * t[-1]) if fit_range is None else fit_range
+    if msd.shape[1] == 0:
+        raise InputError("msd: expected one or more paths (columns), got none")
+    if t.size < 3:
+        raise AnalysisError(f"diffusion fit needs three or more lags, got {t.size}")
+    lo, hi = (0.1 * t[-1], 0.5 * t[-1]) if fit_range is None else interval(fit_range, "fit_range")
     use = (t >= lo) & (t <= hi)
     if use.sum() < 3:
         raise AnalysisError(f"diffusion fit needs three or more lags in [{lo}, {hi}], got {int(use.sum())}")
-    d = np.array([line_fit(t[use], msd[use, p])[0] / 6.0 for p in range(msd.shape[1])])
+    d = np.array([line_fit(t[use], msd[use, p], what="diffusion fit")[0] / 6.0 for p in range(msd.shape[1])])
     error = float(d.std(ddof=1) / np.sqrt(d.size)) if d.size > 1 else None
     return DiffusionFit(coefficient=float(d.mean()), error=error, per_path=d,
                         t_min=float(t[use][0]), t_max=float(t[use][-1]))
@@ -172,7 +183,7 @@ def vector_autocorrelation(vectors):
     ndarray, shape (n_frames,), float64
         Correlation at lags 0 .. n_frames-1 frames; value 1 at lag 0.
     """
-    v = as_array(vectors, "vectors", shape=(None, None, 3))
+    v = _frames(as_array(vectors, "vectors", shape=(None, None, 3)), "vectors")
     n = v.shape[0]
     corr = _autocorrelation_sum(v).sum(axis=1) / (n - np.arange(n))
     if corr[0] <= 0:

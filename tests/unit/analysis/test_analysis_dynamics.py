@@ -5,6 +5,7 @@ import pytest
 
 from beadsim.analysis import (center_of_mass_msd, diffusion_coefficient, inner_bead_msd,
                               mean_square_displacement, relaxation_time, vector_autocorrelation)
+from beadsim.errors import AnalysisError, InputError
 
 
 def test_fft_msd_equals_direct_time_origin_average():
@@ -62,3 +63,21 @@ def test_relaxation_times_of_exact_exponential():
     assert not tau.converged  # C never reaches zero: the integral is a lower bound
     assert tau.integrated == pytest.approx(dt * (0.5 + phi * (1 - phi ** 1999) / (1 - phi)), rel=1e-12)
     assert tau.e_fold == pytest.approx(-dt / np.log(phi), rel=1e-3)
+
+
+@pytest.mark.parametrize("function, name", [(vector_autocorrelation, "vectors"), (mean_square_displacement, "paths")])
+def test_series_without_frames_are_refused(function, name):
+    with pytest.raises(InputError, match=rf"{name}: expected one or more frames, got shape \(0, 0, 3\)"):
+        function(np.zeros((0, 0, 3)))
+
+
+@pytest.mark.parametrize("lag_times, msd, kwargs, error, message", [
+    ([], np.zeros((0, 1)), {}, AnalysisError, "diffusion fit needs three or more lags, got 0"),
+    (np.arange(5.0), np.zeros((5, 0)), {}, InputError, "msd: expected one or more paths"),
+    (np.arange(5.0), np.zeros((5, 1)), {"fit_range": "ab"}, InputError, "fit_range: expected a pair of numbers"),
+    (np.zeros(5), np.ones((5, 1)), {"fit_range": (0.0, 1.0)}, AnalysisError,
+     "diffusion fit: slope undefined, the 5 points share one abscissa"),
+])
+def test_diffusion_coefficient_refuses_degenerate_input(lag_times, msd, kwargs, error, message):
+    with pytest.raises(error, match=message):
+        diffusion_coefficient(lag_times, msd, **kwargs)
