@@ -213,9 +213,18 @@ def mean_square_ratio(re, rg):
     Returns
     -------
     float
+
+    Raises
+    ------
+    AnalysisError
+        No values, or every radius of gyration is zero (the ratio is undefined).
     """
     re = as_array(re, "re", shape=(None, None))
     rg = as_array(rg, "rg", shape=re.shape)
+    if rg.size == 0:
+        raise AnalysisError("mean_square_ratio: undefined without values (re and rg are empty)")
+    if not np.mean(rg ** 2) > 0:
+        raise AnalysisError("mean_square_ratio: undefined, every radius of gyration is zero")
     return float(np.mean(re ** 2) / np.mean(rg ** 2))
 
 

@@ -128,6 +128,12 @@ def test_bad_chains_are_named(random_system, chains, message):
         radius_of_gyration(x, chains)
 
 
+@pytest.mark.parametrize("rg", [np.zeros((0, 2)), np.zeros((3, 2))])
+def test_mean_square_ratio_without_size_is_an_analysis_error(rg):
+    with pytest.raises(AnalysisError, match="mean_square_ratio: undefined"):
+        mean_square_ratio(np.ones_like(rg), rg)
+
+
 def test_positions_with_wrong_shape_are_refused():
     with pytest.raises(InputError, match=r"positions: expected shape \(any, any, 3\), got \(4, 3\)"):
         radius_of_gyration(np.zeros((4, 3)), [np.arange(4)])
