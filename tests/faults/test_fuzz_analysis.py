@@ -19,7 +19,7 @@ from hypothesis.extra import numpy as hnp
 import beadsim.analysis as analysis
 from beadsim.errors import BeadsimError
 
-SHORT, LONG = 8, 150
+SHORT, LONG = 20, 150
 
 FUNCTIONS = sorted(name for name in analysis.__all__ if inspect.isfunction(getattr(analysis, name)))
 
