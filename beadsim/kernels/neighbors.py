@@ -261,7 +261,13 @@ def build_list(pos, box, periodic, r_list, excl_start, excl, types, order, start
             zi = sorted_pos[s, 2]
             for m in range(n_near):
                 b = near[m]
-                for t in range(offsets[b], offsets[b + 1]):
+                t0 = offsets[b]
+                t1 = offsets[b + 1]
+                g0 = t0 - s if t0 >= s else t0 - s + n
+                g1 = t1 - 1 - s if t1 - 1 >= s else t1 - 1 - s + n
+                if t0 == t1 or (g0 <= g1 and 2 * g0 > n):
+                    continue  # empty, or wholly behind this slot: its pairs are stored by their own rows
+                for t in range(t0, t1):
                     gap = t - s if t >= s else t - s + n
                     if gap == 0 or 2 * gap > n or (2 * gap == n and t < s):
                         continue
