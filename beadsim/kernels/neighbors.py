@@ -242,7 +242,6 @@ def build_list(pos, box, periodic, r_list, excl_start, excl, types, order, start
     n_chunks = chunk_count(n)
     capacity = nbr.shape[0] // n_chunks
     counts = np.zeros(n_chunks, dtype=np.int64)
-    ahead = (n - 1) // 2  # a row keeps partners 1 .. ahead slots further round the cycle (and the tie)
     for c in prange(n_chunks):
         lo, hi = chunk_bounds(n, n_chunks, c)
         near = np.empty(27, dtype=np.int64)
