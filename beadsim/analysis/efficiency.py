@@ -30,9 +30,13 @@ elsewhere (for example a sampler of the same distribution that decorrelates
 much faster), so the estimate is not pulled down by each short run's own mean,
 which is what makes mean-subtracted autocorrelations of runs shorter than the
 correlation time useless. :func:`inefficiency_partial_sums` gives the bounds.
+:func:`correlation_from_starts` normalises by the runs' own second moments about
+the known mean instead of a known variance, which is much less noisy when the
+runs are shorter than the correlation time.
 """
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -118,17 +122,97 @@ def autocorrelation_from_starts(runs, mean, variance, max_lag=None):
         rho_r(k) for k = 0 .. max_lag; column 0 is each run's mean square
         deviation over ``variance`` (1 on average).
     """
+    variance = positive(variance, "variance")
+    return _lagged_moments(runs, mean, max_lag)[0] / variance
+
+
+def _lagged_moments(runs, mean, max_lag):
+    """Per run and lag k, averages over the origins s = 0 .. n-1-k of d_s d_{s+k}, d_s^2 and d_{s+k}^2,
+    with d = x - mean; each (n_runs, max_lag + 1)."""
     x = as_array(runs, "runs", shape=(None, None))
     if x.shape[1] < 2:
         raise AnalysisError(f"runs: need at least 2 samples per run, got {x.shape[1]}")
-    variance = positive(variance, "variance")
     n = x.shape[1]
     max_lag = n - 1 if max_lag is None else positive_int(max_lag, "max_lag", allow_zero=True)
     if max_lag > n - 1:
         raise InputError(f"max_lag: at most n - 1 = {n - 1} for runs of {n} samples, got {max_lag}")
     dev = x - float(mean)
-    sums = _autocorrelation_sum(dev.T[:, :, None])[: max_lag + 1].T
-    return sums / (n - np.arange(max_lag + 1)) / variance
+    lags = np.arange(max_lag + 1)
+    counts = n - lags
+    products = _autocorrelation_sum(dev.T[:, :, None])[: max_lag + 1].T / counts
+    cumulative = np.concatenate([np.zeros((x.shape[0], 1)), np.cumsum(dev * dev, axis=1)], axis=1)
+    head = cumulative[:, n - lags] / counts
+    tail = (cumulative[:, n:] - cumulative[:, lags]) / counts
+    return products, head, tail
+
+
+@dataclass(frozen=True)
+class StartsCorrelation:
+    """Autocorrelation pooled over runs as a correlation coefficient, with delete-one-run jackknife errors.
+
+    Attributes
+    ----------
+    rho, rho_error : ndarray, shape (max_lag + 1,), float64
+        Estimate and jackknife standard error, lags 0 .. max_lag (samples).
+    partial_sums, partial_sums_error : ndarray, shape (max_lag + 1,), float64
+        ``1 + 2 sum_{t=1}^{K} rho(t)`` for K = 0 .. max_lag, and its jackknife standard error.
+    partial_sums_bias : ndarray, shape (max_lag + 1,), float64
+        Jackknife estimate of the bias of ``partial_sums`` (a ratio estimator's bias, of order 1/n_runs).
+    """
+
+    rho: np.ndarray
+    rho_error: np.ndarray
+    partial_sums: np.ndarray
+    partial_sums_error: np.ndarray
+    partial_sums_bias: np.ndarray
+
+
+def correlation_from_starts(runs, mean, max_lag=None):
+    """Autocorrelation from runs started in equilibrium, normalised by the runs' own second moments.
+
+    With d = x - ``mean`` (the known equilibrium mean) and sums over runs r and origins s,
+
+        rho(k) = sum d_s d_{s+k} / sqrt(sum d_s^2 * sum d_{s+k}^2),
+
+    the correlation coefficient of the pairs (x_s, x_{s+k}) about the known mean.
+    Compared with :func:`autocorrelation_from_starts` it needs no variance from
+    elsewhere, and when the runs are shorter than the correlation time it is far
+    less noisy: numerator and denominator share each run's slowly varying offset
+    from the mean, which cancels (the standard error of a correlation coefficient
+    near 1 is about ``(1 - rho^2) / sqrt(n_pairs)``). It is a ratio, so it has a
+    bias of order 1/n_runs; errors and that bias come from the delete-one-run
+    jackknife (Efron and Stein, Ann. Statist. 9, 586, 1981), runs being independent.
+
+    Parameters
+    ----------
+    runs : array_like, shape (n_runs, n), float64
+        Equally spaced samples of each run, the first at the equilibrium start; n_runs >= 2.
+    mean : float
+        Equilibrium mean of the quantity, from an independent and precise source.
+    max_lag : int, optional
+        Largest lag, samples (default and upper limit: n - 1).
+
+    Returns
+    -------
+    StartsCorrelation
+    """
+    products, head, tail = _lagged_moments(runs, mean, max_lag)
+    m = products.shape[0]
+    if m < 2:
+        raise AnalysisError(f"runs: need at least 2 runs for a jackknife error, got {m}")
+
+    def estimate(p, a, b):
+        rho = p / np.sqrt(a * b)
+        return rho, 1.0 + 2.0 * np.concatenate([np.zeros(rho.shape[:-1] + (1,)), np.cumsum(rho[..., 1:], axis=-1)],
+                                               axis=-1)
+
+    rho, sums = estimate(products.sum(axis=0), head.sum(axis=0), tail.sum(axis=0))
+    rho_j, sums_j = estimate(products.sum(axis=0) - products, head.sum(axis=0) - head, tail.sum(axis=0) - tail)
+    scale = (m - 1) / m
+    return StartsCorrelation(rho=rho, rho_error=np.sqrt(scale * np.sum((rho_j - rho_j.mean(axis=0)) ** 2, axis=0)),
+                             partial_sums=sums,
+                             partial_sums_error=np.sqrt(scale * np.sum((sums_j - sums_j.mean(axis=0)) ** 2, axis=0)),
+                             partial_sums_bias=(m - 1) * (sums_j.mean(axis=0) - sums))
 
 
 def inefficiency_partial_sums(rho):
