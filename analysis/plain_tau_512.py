@@ -34,7 +34,8 @@ import numpy as np
 from scipy.stats import t as student_t
 
 import beadsim as bs
-from beadsim.analysis.efficiency import autocorrelation_from_starts, inefficiency_partial_sums
+from beadsim.analysis.efficiency import (autocorrelation_from_starts, correlation_from_starts,
+                                         inefficiency_partial_sums)
 from beadsim.analysis.stats import statistical_inefficiency, summarize
 
 HERE = Path(__file__).parent
@@ -124,25 +125,52 @@ def _hybrid_reference(rec):
             "statistical_inefficiency_error": float(np.std(quarters, ddof=1) / 2.0)}
 
 
+JACKKNIFE_CALIBRATION = 1.2
+"""Factor applied to the jackknife errors of the self-normalised estimator: on AR(1) runs far shorter than
+the correlation time (16 runs per study, 300 studies, tests/unit/analysis/test_analysis_efficiency.py) its
+z-scores scatter with standard deviation 1.18."""
+
+ESTIMATORS = ("variance_normalised", "self_normalised")
+"""Products about the hybrid mean over the hybrid variance (errors across runs), and the correlation
+coefficient about the hybrid mean (jackknife errors times JACKKNIFE_CALIBRATION); see
+beadsim.analysis.efficiency."""
+
+
+def _estimate(name, runs, mean, variance):
+    """rho, its error, partial sums and their error (samples) of one estimator."""
+    if name == "variance_normalised":
+        rho = autocorrelation_from_starts(runs, mean, variance)
+        _, sums, error = inefficiency_partial_sums(rho)
+        return rho.mean(axis=0), rho.std(axis=0, ddof=1) / np.sqrt(len(runs)), sums, error, np.zeros_like(sums)
+    c = correlation_from_starts(runs, mean)
+    return (c.rho, JACKKNIFE_CALIBRATION * c.rho_error, c.partial_sums, JACKKNIFE_CALIBRATION * c.partial_sums_error,
+            c.partial_sums_bias)
+
+
+def _estimators(runs, ref):
+    """Both estimators, with the partial sums' error from the runs and from the reference's mean and variance
+    (the largest change when either moves by one standard error)."""
+    out = {}
+    for name in ESTIMATORS:
+        rho, rho_err, sums, err, bias = _estimate(name, runs, ref["mean"], ref["variance"])
+        moved = [_estimate(name, runs, m, v)[2] - sums for m, v in (
+            (ref["mean"] + ref["mean_error"], ref["variance"]), (ref["mean"] - ref["mean_error"], ref["variance"]),
+            (ref["mean"], ref["variance"] + ref["variance_error"]),
+            (ref["mean"], ref["variance"] - ref["variance_error"]))]
+        ref_err = np.hypot(np.max(np.abs(moved[:2]), axis=0), np.max(np.abs(moved[2:]), axis=0))
+        out[name] = {"rho": rho, "rho_error": rho_err, "sums": sums, "sums_error_runs": err,
+                     "sums_error_reference": ref_err, "sums_error": np.hypot(err, ref_err), "sums_bias": bias}
+    return out
+
+
 def analyse(path, quick):
     """Autocorrelation about the hybrid mean, partial-sum bounds, rates and ratio; figure; results into the JSON."""
     data = json.loads(path.read_text())
-    plan = data["plan"]
+    interval = data["plan"]["interval"]
     ref = _hybrid_reference(data["hybrid"])
     runs = np.array([rec["rg_series"] for rec in data["plain"]])
     n_runs, n = runs.shape
-    interval = plan["interval"]
-    rho = autocorrelation_from_starts(runs, ref["mean"], ref["variance"])
-    _, g_low, g_err = inefficiency_partial_sums(rho)
-    # how far the bound moves when the reference mean or variance moves by one standard error
-    shifts = []
-    for mean, variance in ((ref["mean"] + ref["mean_error"], ref["variance"]),
-                           (ref["mean"] - ref["mean_error"], ref["variance"]),
-                           (ref["mean"], ref["variance"] + ref["variance_error"]),
-                           (ref["mean"], ref["variance"] - ref["variance_error"])):
-        shifts.append(inefficiency_partial_sums(autocorrelation_from_starts(runs, mean, variance))[1] - g_low)
-    g_ref_err = np.hypot(np.max(np.abs(shifts[:2]), axis=0), np.max(np.abs(shifts[2:]), axis=0))
-    g_total_err = np.hypot(g_err, g_ref_err)
+    est = _estimators(runs, ref)
     own = autocorrelation_from_starts(runs - runs.mean(axis=1, keepdims=True), 0.0, ref["variance"]).mean(axis=0)
 
     steps = np.array([rec["steps"] for rec in data["plain"]])
@@ -154,78 +182,85 @@ def analyse(path, quick):
     hybrid_g_rel = ref["statistical_inefficiency_error"] / hybrid["statistical_inefficiency"]
     t95 = float(student_t.ppf(0.95, n_runs - 1))
 
-    def at(k):
-        """Bound, plain rate and ratio with the partial sum cut at lag k (samples, odd)."""
-        g_steps = float(g_low[k] * interval)
-        err_steps = float(g_total_err[k] * interval)
+    def at(e, k):
+        """Bound, plain rate and ratio with the partial sum of estimator ``e`` cut at lag k (samples, odd)."""
+        g_steps = float(e["sums"][k] * interval)
+        err_steps = float(e["sums_error"][k] * interval)
         plain_rate = 1.0 / (g_steps * plain_per_step)
         ratio = hybrid["per_cpu_second"] / plain_rate
         rel = np.sqrt((err_steps / g_steps) ** 2 + hybrid_g_rel ** 2 + (plain_per_step_err / plain_per_step) ** 2)
         one_sided = g_steps - t95 * err_steps
-        return {"lag_steps": int(k * interval), "g_low_samples": float(g_low[k]),
-                "g_low_error_samples": float(g_total_err[k]),
-                "g_low_error_across_runs": float(g_err[k] * interval),
-                "g_low_error_from_reference": float(g_ref_err[k] * interval),
-                "steps_per_independent_sample_at_least": g_steps, "error_steps": err_steps,
-                "one_sided_95_steps": one_sided,
-                "plain_per_cpu_second_at_most": plain_rate, "ratio_at_least": ratio,
-                "ratio_error": float(ratio * rel),
+        return {"lag_steps": int(k * interval), "steps_per_independent_sample_at_least": g_steps,
+                "error_steps": err_steps, "error_across_runs_steps": float(e["sums_error_runs"][k] * interval),
+                "error_from_reference_steps": float(e["sums_error_reference"][k] * interval),
+                "jackknife_bias_steps": float(e["sums_bias"][k] * interval), "one_sided_95_steps": one_sided,
+                "plain_per_cpu_second_at_most": plain_rate, "ratio_at_least": ratio, "ratio_error": float(ratio * rel),
                 "ratio_at_least_one_sided_95": hybrid["per_cpu_second"] * one_sided * plain_per_step}
 
     run_steps = int(steps[0])
     primary = (3 * run_steps // 4) // interval
     primary -= 1 - primary % 2  # the largest odd lag within 3/4 of a run (fixed before looking at the data)
-    odd = [k for k in (1, 5, 11, 25, 51, 101, 151, 201, 301, 401, 501, 751, 999, 1499) if k < n]
-    bounds = {str(k * interval): at(k) for k in sorted(set(odd + [primary]))}
-    needed = TARGET_RATIO / (hybrid["per_cpu_second"] * plain_per_step)
+    odd = sorted({k for k in (1, 5, 11, 25, 51, 101, 151, 201, 301, 401, 501, 751, 999, 1499) if k < n} | {primary})
     result = {
-        "observable": "Rg (sigma), deviations from the hybrid mean, normalised by the hybrid variance",
+        "observable": "Rg (sigma), deviations from the hybrid mean",
         "runs": n_runs, "run_steps": run_steps, "samples_per_run": n, "interval_steps": interval,
-        "reference": ref, "primary_lag_steps": int(primary * interval), "primary": at(primary), "bounds": bounds,
+        "reference": ref, "primary_lag_steps": int(primary * interval),
+        "primary": {name: at(est[name], primary) for name in ESTIMATORS},
+        "bounds": {name: {str(k * interval): at(est[name], k) for k in odd} for name in ESTIMATORS},
         "plain_cpu_seconds": float(cpu.sum()), "plain_steps": int(steps.sum()),
         "plain_cpu_seconds_per_step": plain_per_step, "plain_cpu_seconds_per_step_error": plain_per_step_err,
         "plain_cpu_seconds_per_step_runs": per_step_runs.tolist(),
         "hybrid_per_cpu_second": hybrid["per_cpu_second"],
         "hybrid_statistical_inefficiency_relative_error": hybrid_g_rel,
         "hybrid_retimed_cpu_seconds_per_step": data.get("hybrid_retimed", {}).get("cpu_seconds_per_step"),
-        "steps_needed_for_target": needed, "student_t_95": t95,
-        "rho_mean": rho.mean(axis=0).tolist(), "rho_error": (rho.std(axis=0, ddof=1) / np.sqrt(n_runs)).tolist(),
+        "steps_needed_for_target": TARGET_RATIO / (hybrid["per_cpu_second"] * plain_per_step),
+        "student_t_95": t95, "jackknife_calibration": JACKKNIFE_CALIBRATION,
+        "curves": {name: {key: est[name][key].tolist() for key in ("rho", "rho_error", "sums", "sums_error")}
+                   for name in ESTIMATORS},
         "rho_own_mean_subtracted": own.tolist(),
         "run_means": runs.mean(axis=1).tolist(),
     }
     data["analysis"] = result
     path.write_text(json.dumps(data) + "\n")
-    _figure(result, g_low * interval, g_total_err * interval, FIGURE.with_name(FIGURE.name + "_quick") if quick
-            else FIGURE)
-    print(json.dumps({k: v for k, v in result.items() if not k.startswith(("rho", "bounds"))}, indent=1))
+    _figure(result, FIGURE.with_name(FIGURE.name + "_quick") if quick else FIGURE)
+    print(json.dumps({k: v for k, v in result.items() if k not in ("curves", "bounds", "rho_own_mean_subtracted")},
+                     indent=1))
 
 
-def _figure(result, g_steps, g_steps_err, stem):
+def _figure(result, stem):
     from matplotlib.figure import Figure
 
     from beadsim.plots import _save
 
-    lags = np.arange(len(result["rho_mean"])) * result["interval_steps"] / 1e6
-    rho, err = np.array(result["rho_mean"]), np.array(result["rho_error"])
-    fig = Figure(figsize=(10, 4.2))
-    ax = fig.add_subplot(1, 2, 1)
-    ax.fill_between(lags, rho - err, rho + err, color="C0", alpha=0.3, lw=0)
-    ax.plot(lags, rho, color="C0", lw=1, label=f"about the hybrid mean ({result['runs']} runs, +- 1 s.e.)")
-    ax.plot(lags, result["rho_own_mean_subtracted"], color="C1", lw=0.8, ls="--",
-            label="each run's own mean subtracted (biased low)")
-    ax.axhline(0, color="k", lw=0.5)
-    ax.set_xlabel("lag [10^6 steps]")
-    ax.set_ylabel("rho(t) of Rg, plain Langevin, N = 512")
-    ax.legend(frameon=False, fontsize="small")
-    ax = fig.add_subplot(1, 2, 2)
-    ax.fill_between(lags, (g_steps - g_steps_err) / 1e3, (g_steps + g_steps_err) / 1e3, color="C0", alpha=0.3, lw=0)
-    ax.plot(lags, g_steps / 1e3, color="C0", lw=1, label="partial sum: lower bound on steps per independent sample")
-    ax.axhline(result["steps_needed_for_target"] / 1e3, color="C3", lw=1, ls=":",
-               label=f"needed for {TARGET_RATIO:,.0f} x at the measured rates")
-    ax.axvline(result["primary_lag_steps"] / 1e6, color="k", lw=0.5, ls="--", label="cut chosen in advance (3/4 of a run)")
-    ax.set_xlabel("cut K [10^6 steps]")
-    ax.set_ylabel("interval x (1 + 2 sum_{t<=K} rho) [10^3 steps]")
-    ax.legend(frameon=False, fontsize="small")
+    interval = result["interval_steps"]
+    labels = {"variance_normalised": "over the hybrid variance (s.e. across runs)",
+              "self_normalised": "correlation coefficient (jackknife s.e. x 1.2)"}
+    fig = Figure(figsize=(11, 4.4))
+    left, right = fig.add_subplot(1, 2, 1), fig.add_subplot(1, 2, 2)
+    for colour, name in zip(("C0", "C2"), ESTIMATORS):
+        curve = {key: np.array(value) for key, value in result["curves"][name].items()}
+        lags = np.arange(curve["rho"].size) * interval / 1e6
+        left.fill_between(lags, curve["rho"] - curve["rho_error"], curve["rho"] + curve["rho_error"], color=colour,
+                          alpha=0.25, lw=0)
+        left.plot(lags, curve["rho"], color=colour, lw=1, label=labels[name])
+        sums, err = curve["sums"] * interval / 1e3, curve["sums_error"] * interval / 1e3
+        right.fill_between(lags, sums - err, sums + err, color=colour, alpha=0.25, lw=0)
+        right.plot(lags, sums, color=colour, lw=1, label=labels[name])
+    left.plot(lags, result["rho_own_mean_subtracted"], color="C1", lw=0.8, ls="--",
+              label="each run's own mean subtracted (biased low)")
+    left.axhline(0, color="k", lw=0.5)
+    left.set_xlabel("lag [10^6 steps]")
+    left.set_ylabel(f"rho(t) of Rg about the hybrid mean ({result['runs']} runs, +- 1 s.e.)")
+    left.set_title("plain Langevin, N = 512, good solvent", fontsize="medium")
+    right.axhline(result["steps_needed_for_target"] / 1e3, color="C3", lw=1, ls=":",
+                  label=f"needed for {TARGET_RATIO:,.0f} x at the measured rates")
+    right.axvline(result["primary_lag_steps"] / 1e6, color="k", lw=0.5, ls="--",
+                  label="cut fixed in advance (3/4 of a run)")
+    right.set_xlabel("cut K [10^6 steps]")
+    right.set_ylabel("interval x (1 + 2 sum_{t<=K} rho(t)) [10^3 steps]")
+    right.set_title("lower bound on steps per independent Rg sample", fontsize="medium")
+    for ax in (left, right):
+        ax.legend(frameon=False, fontsize="small")
     stem.parent.mkdir(parents=True, exist_ok=True)
     _save(fig, str(stem) + ".png")
 
