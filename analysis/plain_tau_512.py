@@ -206,6 +206,11 @@ def analyse(path, quick):
         "runs": n_runs, "run_steps": run_steps, "samples_per_run": n, "interval_steps": interval,
         "reference": ref, "primary_lag_steps": int(primary * interval),
         "primary": {name: at(est[name], primary) for name in ESTIMATORS},
+        # a plain (BAOAB) equilibrium mean differing from the hybrid one by 1 % of Rg (time-step error) moves
+        # the bound by this much, steps (largest change of the two signs)
+        "primary_change_mean_off_by_1_percent": {name: float(interval * max(
+            abs(_estimate(name, runs, ref["mean"] * f, ref["variance"])[2][primary] - est[name]["sums"][primary])
+            for f in (0.99, 1.01))) for name in ESTIMATORS},
         "bounds": {name: {str(k * interval): at(est[name], k) for k in odd} for name in ESTIMATORS},
         "plain_cpu_seconds": float(cpu.sum()), "plain_steps": int(steps.sum()),
         "plain_cpu_seconds_per_step": plain_per_step, "plain_cpu_seconds_per_step_error": plain_per_step_err,
