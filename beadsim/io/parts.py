@@ -16,9 +16,10 @@ already holds frames a checkpoint relies on:
   records the joined base, and only then are the parts deleted;
 * on resume, :meth:`PartedTrajectory.resume` keeps exactly what the
   checkpoint's manifest names: parts written after it (sealed or half
-  written) are deleted, and a base holding more frames than recorded (a kill
+  written) are deleted, a base holding more frames than recorded (a kill
   between the join and the checkpoint that records it) is cut back with an
-  atomic rewrite.
+  atomic rewrite, and a trajectory file the manifest names no frames of is
+  deleted unread (it may be broken beyond opening).
 
 So a kill at any moment loses no frame the checkpoint covers and the resumed
 run duplicates none. The frame order on disk is base, then parts in order.
@@ -107,13 +108,15 @@ class PartedTrajectory:
 
         Parts not named in the manifest (written after the checkpoint, sealed
         or not) are deleted; a base holding more frames than recorded is cut
-        back atomically.
+        back atomically; a file at ``path`` when the manifest records no base
+        frames is deleted without being read (whatever left it, even a file
+        that no longer opens).
 
         Raises
         ------
         beadsim.errors.CheckpointError
-            A base or part the checkpoint relies on is missing or holds fewer
-            frames than recorded.
+            A base or part the checkpoint relies on is missing, cannot be read
+            or holds fewer frames than recorded.
         """
         self = cls(path, topology, length_scale_nm, box_lengths, _manifest=manifest)
         named = {name for name, _ in self.parts}
@@ -127,17 +130,19 @@ class PartedTrajectory:
             if not os.path.exists(part):
                 raise CheckpointError(f"{part}: trajectory part recorded in the checkpoint is missing; "
                                       "its frames are lost (start the run again with --overwrite)")
-        present = count_frames(self.path) if os.path.exists(self.path) else 0
+        if not self.base_frames:
+            if os.path.exists(self.path):  # never read: a broken file here must not stop the run
+                logger.info("%s: dropping it, the checkpoint records no frames in it", self.path)
+                os.remove(self.path)
+            return self
+        present = _frames_relied_on(self.path, self.base_frames)
         if present < self.base_frames:
             raise CheckpointError(f"{self.path}: holds {present} frames but the checkpoint records "
                                   f"{self.base_frames}; start the run again with --overwrite")
         if present > self.base_frames:
             logger.info("%s: cutting back from %d to %d frames (the checkpoint's count)", self.path, present,
                         self.base_frames)
-            if self.base_frames == 0:
-                os.remove(self.path)
-            else:
-                truncate_trajectory(self.path, self.base_frames, topology)
+            truncate_trajectory(self.path, self.base_frames, topology)
         return self
 
     @property
@@ -224,6 +229,25 @@ class PartedTrajectory:
         if self._open_part is not None:
             part, self._open_part = self._open_part, None
             part.close()
+
+
+def _frames_relied_on(path, base_frames):
+    """Frames in the base trajectory ``path`` that a checkpoint says holds ``base_frames`` (0 if absent).
+
+    Raises
+    ------
+    beadsim.errors.CheckpointError
+        The file cannot be read (cut short by a kill while a writer appended to it, or not a trajectory).
+    """
+    if not os.path.exists(path):
+        return 0
+    try:
+        return count_frames(path)
+    except (*WRITE_ERRORS, ValueError, EOFError) as exc:
+        logger.debug("%s: unreadable: %s", path, exc)
+        raise CheckpointError(f"{path}: the trajectory file cannot be read (it was cut short, or is not a "
+                              f"trajectory), but the checkpoint relies on its first {base_frames} frames: start "
+                              "the run again with --overwrite, or put back a good copy and --resume") from None
 
 
 def _reason(exc):
