@@ -227,8 +227,8 @@ def size_scaling_figure(df, control_kind, controls, path):
     return _save(fig, path)
 
 
-def sigmoid_figure(df, control_kind, fits, path):
-    """Rg versus control for every N with the fitted logistic curves and midpoints.
+def sigmoid_figure(df, control_kind, fits, path, mbar=None):
+    """Rg versus control for every N with the fitted logistic curves and midpoints, and MBAR curves if given.
 
     Parameters
     ----------
@@ -239,12 +239,16 @@ def sigmoid_figure(df, control_kind, fits, path):
         From :func:`beadsim.studies.collapse.transition_sigmoids`; those without a value are skipped.
     path : str or os.PathLike
         Output (module notes).
+    mbar : dict of int to beadsim.analysis.reweight.Curves, optional
+        MBAR curves by chain length (temperature sweeps): ``Rg = <Rg^2>^(1/2)`` drawn dash-dotted with
+        a one-standard-error band, left out where the curves are NaN.
 
     Returns
     -------
     list of str
     """
     df, _ = usable_runs(check_table(df, control_kind), ("rg2", "rg2_error"))
+    mbar = mbar or {}
     means = point_means(df, "rg2")
     by_n = {e.details["n_beads"]: e for e in fits if isinstance(e, Estimate) and e.value is not None}
     fig, ax = _axes()
@@ -260,6 +264,12 @@ def sigmoid_figure(df, control_kind, fits, path):
             ax.plot(grid, logistic(grid, fit.value, d["width"], d["rg_globule"], d["rg_coil"], d["sign"]),
                     color=f"C{k}", lw=1)
             ax.axvline(fit.value, color=f"C{k}", lw=0.6, ls=":")
+        curves = mbar.get(int(n))
+        if curves is not None:
+            rg = np.sqrt(curves.means["rg2"])
+            err = curves.errors["rg2"] / (2 * rg)
+            ax.plot(curves.temperatures, rg, color=f"C{k}", lw=1, ls="-.", label="MBAR" if not k else None)
+            ax.fill_between(curves.temperatures, rg - err, rg + err, color=f"C{k}", alpha=0.2, lw=0)
     ax.set_xlabel(_control_label(control_kind))
     ax.set_ylabel("Rg = <Rg^2>^(1/2) [sigma]")
     ax.legend(frameon=False, fontsize="small")
@@ -362,11 +372,12 @@ def snapshots_figure(conformations, labels, path):
     return _save(fig, path)
 
 
-def reweighted_figure(curves, path, rungs=None, peak=None):
-    """MBAR curves of a temperature ladder: <Rg^2>, <Re^2>, potential energy and heat capacity per bead.
+def reweighted_figure(curves, path, rungs=None, peak=None, points_label="rung averages"):
+    """MBAR curves across temperatures: <Rg^2>, <Re^2>, potential energy and heat capacity per bead.
 
     Each panel shows the reweighted average with a one-standard-error band over the sampled
-    range and, with ``rungs``, the direct averages of the rungs as points.
+    range (left out where the curves are NaN, between temperatures that overlap too little) and,
+    with ``rungs``, the direct averages at the sampled temperatures as points.
 
     Parameters
     ----------
@@ -375,10 +386,13 @@ def reweighted_figure(curves, path, rungs=None, peak=None):
     path : str or os.PathLike
         Output (module notes).
     rungs : sequence of dict, optional
-        Per rung ``temperature`` and, for each quantity, its mean and ``<quantity>_error``
-        (as in the ``rungs`` of :func:`beadsim.studies.tempering.analyze_ladder`).
+        Per rung (or sweep temperature) ``temperature`` and, for each quantity, its mean and
+        ``<quantity>_error`` (as in the ``rungs`` of :func:`beadsim.studies.tempering.analyze_ladder`);
+        quantities a row lacks are not drawn for it.
     peak : Estimate, optional
         Heat-capacity maximum to mark on every panel.
+    points_label : str
+        Legend of the points.
 
     Returns
     -------
@@ -394,10 +408,11 @@ def reweighted_figure(curves, path, rungs=None, peak=None):
             mean, err = curves.means[name], curves.errors[name]
             ax.plot(t, mean, color="C0", lw=1.2, label="MBAR")
             ax.fill_between(t, mean - err, mean + err, color="C0", alpha=0.25, lw=0)
-        if rungs and name in rungs[0]:
-            ax.errorbar([r["temperature"] for r in rungs], [r[name] for r in rungs],
-                        [r.get(f"{name}_error", np.nan) for r in rungs], color="C1", marker="o", ms=3, lw=0,
-                        elinewidth=1, capsize=2, label="rung averages")
+        shown = [r for r in rungs or () if name in r]
+        if shown:
+            ax.errorbar([r["temperature"] for r in shown], [r[name] for r in shown],
+                        [r.get(f"{name}_error", np.nan) for r in shown], color="C1", marker="o", ms=3, lw=0,
+                        elinewidth=1, capsize=2, label=points_label)
         _mark_estimate(ax, peak, label="C peak")
         ax.set_xlabel(_control_label("temperature"))
         ax.set_ylabel(label)

@@ -28,6 +28,11 @@ def format_study(summary):
         lines.append(f"theta estimate: {_pm(best['value'], best['error'])} ({best['how']})")
     for item in summary.get("collapse", []):
         lines.append(f"  {item}")
+    mbar = summary.get("mbar", {})
+    if mbar.get("curves_csv"):
+        lines.append(f"MBAR curves (each N's temperatures combined): {mbar['curves_csv']}")
+    elif mbar.get("note"):
+        lines.append(f"MBAR curves: {mbar['note']}")
     lines.append(f"results table: {summary.get('results_csv')}")
     if summary.get("figures"):
         lines.append(f"figures in: {summary['figures']}")

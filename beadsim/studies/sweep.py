@@ -22,6 +22,7 @@ import tables
 from ..config import (AT_LEAST_ONE, POSITIVE, REQUIRED, check_only_section, check_section, choice, load_toml,
                       read_settings)
 from ..errors import InputError
+from . import sweep_mbar
 
 log = logging.getLogger(__name__)
 
@@ -493,7 +494,8 @@ def finalize(store, study, out):
         summary["results_parquet"] = str(Path(out) / RESULTS_PARQUET)
     except ImportError as exc:  # pyarrow is a dependency; a broken install still leaves the CSV
         summary["results_parquet"] = f"not written ({exc})"
-    summary.update(estimate_everything(frame, study["control"], Path(out) / FIGURES_DIR, seed=study["seed"]))
+    summary.update(estimate_everything(frame, study["control"], Path(out) / FIGURES_DIR, seed=study["seed"],
+                                       curves_csv=Path(out) / sweep_mbar.CURVES_CSV))
     return summary
 
 
@@ -502,8 +504,12 @@ def finalize(store, study, out):
 PRIMARY_ESTIMATORS = ("crossing", "nu_eff", "<Re^2>/<Rg^2>")
 
 
-def estimate_everything(frame, control_kind, figures, seed=0):
+def estimate_everything(frame, control_kind, figures, seed=0, curves_csv=None):
     """Theta estimators side by side, the coil-globule transition, and the study figures.
+
+    In temperature sweeps the points of each chain length are also combined by MBAR
+    (:mod:`beadsim.studies.sweep_mbar`): smooth curves drawn in the transition figure and in one
+    figure per N (``mbar_n<N>``), and the heat-capacity maximum reported beside the Rg midpoint.
 
     Parameters
     ----------
@@ -514,13 +520,16 @@ def estimate_everything(frame, control_kind, figures, seed=0):
         Folder for the PNG and SVG figures.
     seed : int
         Seed of the bootstrap estimators.
+    curves_csv : path-like, optional
+        Where to write the MBAR curves (:func:`beadsim.studies.sweep_mbar.curves_table`).
 
     Returns
     -------
     dict
         ``theta`` (list of estimate dicts), ``theta_combined``, ``collapse`` (lines of text),
         ``collapse_fits`` (list of estimate dicts), ``regime_figures`` (notes on the Kratky
-        and snapshot figures) and ``figures``.
+        and snapshot figures), ``mbar`` (per chain length: overlap and samples; the curves file
+        or a note) and ``figures``.
     """
     from . import collapse, figures as fig
     from .exponents import size_exponents
@@ -549,15 +558,47 @@ def estimate_everything(frame, control_kind, figures, seed=0):
         picks = sorted({controls[0], controls[len(controls) // 2], controls[-1]})
         fig.size_scaling_figure(frame, control_kind, picks, figures / "size_scaling")
     sigmoids = collapse.transition_sigmoids(frame, control_kind)
-    fig.sigmoid_figure(frame, control_kind, sigmoids, figures / "transition")
+    combined = sweep_mbar.sweep_curves(frame, seed=seed) if control_kind == "temperature" else []
+    fig.sigmoid_figure(frame, control_kind, sigmoids, figures / "transition",
+                       mbar={r.n_beads: r.curves for r in combined if r.curves is not None})
+    out["mbar"] = _mbar_outputs(frame, combined, figures, curves_csv, control_kind)
     out["regime_figures"] = _regime_figures(frame, control_kind, figures, primary)
-    fits = (size_exponents(frame, control_kind) + sigmoids + collapse.heat_capacity_peaks(frame, control_kind)
+    fits = (size_exponents(frame, control_kind) + sigmoids + [r.peak for r in combined]
+            + collapse.heat_capacity_peaks(frame, control_kind)
             + collapse.globule_scaling(frame, control_kind) + collapse.globule_extrapolation(frame, control_kind))
     for e in fits:
         text = "-" if e.value is None else (f"{e.value:.4g} +- {e.error:.2g}" if e.error is not None
                                             else f"{e.value:.4g}")
         out["collapse"].append(f"{e.method} ({e.fitted_on}): {text}" + (f"  [{'; '.join(e.notes)}]" if e.notes else ""))
         out["collapse_fits"].append(e.as_dict())
+    return out
+
+
+def _mbar_outputs(frame, combined, figures, curves_csv, control_kind):
+    """Per-N MBAR figures and the curves file; the summary's ``mbar`` entry."""
+    from . import figures as fig
+
+    if control_kind != "temperature":
+        return {"note": "MBAR curves are made for temperature sweeps only (an attraction-depth sweep changes "
+                        "the potential itself)"}
+    per_n = []
+    for r in combined:
+        entry = {"n_beads": r.n_beads, "note": "; ".join(r.peak.notes)}
+        if r.curves is not None:
+            entry.update(overlap_gap=r.curves.overlap, sampled_temperatures=r.curves.sampled.tolist(),
+                         neighbour_overlap=r.curves.neighbour_overlap.tolist(),
+                         samples=r.curves.pooled.counts.tolist(),
+                         figures=fig.reweighted_figure(r.curves, Path(figures) / f"mbar_n{r.n_beads}",
+                                                       rungs=sweep_mbar.point_averages(frame, r.n_beads),
+                                                       peak=r.peak, points_label="point averages"))
+        per_n.append(entry)
+    out = {"chain_lengths": per_n}
+    table = sweep_mbar.curves_table(combined)
+    if curves_csv is not None and not table.empty:
+        table.to_csv(curves_csv, index=False)
+        out["curves_csv"] = str(curves_csv)
+    elif table.empty:
+        out["note"] = "no chain length could be combined (see chain_lengths)"
     return out
 
 
