@@ -292,6 +292,32 @@ def settings_hash(settings):
     return hashlib.sha256(json.dumps(settings, sort_keys=True).encode()).hexdigest()
 
 
+def non_default_settings(settings):
+    """The part of resolved settings that differs from the input schema's defaults.
+
+    Parameters
+    ----------
+    settings : dict
+        ``{section: {key: value}}``: resolved settings, or a resolved input file as read back by
+        :func:`load_toml` (where keys whose value is None are absent).
+
+    Returns
+    -------
+    dict
+        ``{section: {key: value}}`` without the keys left at their defaults (None included) and
+        without sections left empty; keys the schema does not know are kept. Two settings with the
+        same non-default part describe the same run even when one of them was written by a version
+        that lacked a key or section which a later version added with a default.
+    """
+    given = {}
+    for section, values in settings.items():
+        changed = {key: value for key, value in values.items()
+                   if key not in SCHEMA.get(section, {}) or value != SCHEMA[section][key][1]}
+        if changed:
+            given[section] = changed
+    return given
+
+
 def to_toml(settings):
     """Render resolved settings as TOML text (the 'resolved input' copy written with a run)."""
     lines = ["# resolved input: every default filled in, presets applied"]

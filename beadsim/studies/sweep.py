@@ -338,15 +338,9 @@ def study_identity(study, base):
     Base settings left at their schema defaults are not hashed, so that a later
     version which adds an input key or section with defaults still recognises the folder.
     """
-    from ..config import SCHEMA, settings_hash
+    from ..config import non_default_settings, settings_hash
 
-    given = {}
-    for section, values in base.items():
-        changed = {key: value for key, value in values.items()
-                   if key not in SCHEMA.get(section, {}) or value != SCHEMA[section][key][1]}
-        if changed:
-            given[section] = changed
-    return settings_hash({"base": given, "control": study["control"], "seed": study["seed"]})
+    return settings_hash({"base": non_default_settings(base), "control": study["control"], "seed": study["seed"]})
 
 
 def run_study(study_path, out=None, *, workers=None, backend="local", cluster=None, progress=True,
