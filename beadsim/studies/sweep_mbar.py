@@ -12,7 +12,7 @@ statistical inefficiency, and every replica is its own MBAR state
 
 * ``<Rg^2>(T)``, ``<Re^2>(T)`` (sigma^2), ``<U>/N`` (epsilon) and the configurational
   heat capacity ``C/N`` (k_B) with MBAR's standard errors on :data:`N_GRID`
-  temperatures across the sampled range (:func:`beadsim.analysis.reweight.reweighted_curves`);
+  temperatures across the sampled range and at the sampled temperatures themselves (:func:`beadsim.analysis.reweight.reweighted_curves`);
   between neighbouring temperatures whose samples overlap too little the curves are
   left out (NaN) and the pair is named in the notes;
 * the transition temperature from the maximum of ``C(T)`` with a bootstrap error
@@ -114,7 +114,7 @@ def sweep_curves(frame, n_grid=N_GRID, n_bootstrap=N_BOOTSTRAP, seed=0):
         Results table of a temperature sweep (:func:`beadsim.studies.sweep.results_frame`), with the
         ``folder`` of every point.
     n_grid : int
-        Temperatures of the curves.
+        Evenly spaced temperatures of the curves (the sampled ones are added).
     n_bootstrap : int
         Resamples for the error of the heat-capacity maximum (>= 10).
     seed : int
@@ -153,7 +153,7 @@ def sweep_curves(frame, n_grid=N_GRID, n_bootstrap=N_BOOTSTRAP, seed=0):
         try:
             pooled = pool_samples(temps, [s["potential_energy"] for s in series],
                                   {name: [s[name] for s in series] for name in ("rg2", "re2")})
-            curves = reweighted_curves(pooled, np.linspace(min(temps), max(temps), n_grid), n)
+            curves = reweighted_curves(pooled, _grid(temps, n_grid), n)
             peak = heat_capacity_peak(pooled, n, n_bootstrap=n_bootstrap, seed=seed)
         except AnalysisError as exc:
             out.append(ChainLengthCurves(n, None, Estimate(method, None, None, _describe(group),
@@ -169,6 +169,12 @@ def sweep_curves(frame, n_grid=N_GRID, n_bootstrap=N_BOOTSTRAP, seed=0):
                                                          {"n_beads": n, "peak_height": peak.height,
                                                           "bootstrap_resamples": peak.n_bootstrap})))
     return out
+
+
+def _grid(sampled, n_grid):
+    """``n_grid`` evenly spaced temperatures across ``sampled`` and the sampled ones, without near-repeats."""
+    even = np.linspace(min(sampled), max(sampled), n_grid)
+    return np.union1d(even[~np.isclose(even[:, None], sampled, rtol=1e-9, atol=0).any(axis=1)], sampled)
 
 
 def curves_table(results):
