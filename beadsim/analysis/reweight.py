@@ -100,12 +100,12 @@ class Pooled:
     inefficiencies: np.ndarray
     equilibration: np.ndarray
     energy_reference: float
-    residual_inefficiencies: np.ndarray = None
+    residual_inefficiencies: np.ndarray
 
     @property
     def error_scale(self):
-        """Factor ``sqrt(max g_r)`` applied to MBAR's errors (module notes); 1 without residual inefficiencies."""
-        return 1.0 if self.residual_inefficiencies is None else float(np.sqrt(np.max(self.residual_inefficiencies)))
+        """Factor ``sqrt(max g_r)`` applied to MBAR's errors (module notes)."""
+        return float(np.sqrt(np.max(self.residual_inefficiencies)))
 
 
 def pool_samples(temperatures, energies, observables=None, detect=True):
