@@ -195,7 +195,7 @@ def analyse(path, quick):
                 "error_from_reference_steps": float(e["sums_error_reference"][k] * interval),
                 "jackknife_bias_steps": float(e["sums_bias"][k] * interval), "one_sided_95_steps": one_sided,
                 "plain_per_cpu_second_at_most": plain_rate, "ratio_at_least": ratio, "ratio_error": float(ratio * rel),
-                "ratio_at_least_one_sided_95": hybrid["per_cpu_second"] * one_sided * plain_per_step}
+                "ratio_at_least_one_sided_95": float(ratio * (1.0 - t95 * rel))}
 
     run_steps = int(steps[0])
     primary = (3 * run_steps // 4) // interval
