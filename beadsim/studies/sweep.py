@@ -21,7 +21,7 @@ import tables
 
 from ..config import (AT_LEAST_ONE, POSITIVE, REQUIRED, check_only_section, check_section, choice, load_toml,
                       read_settings)
-from ..errors import InputError
+from ..errors import CheckpointError, InputError
 from . import sweep_mbar
 
 log = logging.getLogger(__name__)
@@ -35,8 +35,9 @@ FIGURES_DIR = "figures"
 
 CONTROLS = ("temperature", "depth")
 
-#: Errors from reading back a trajectory that a killed process left half written.
-UNREADABLE_OUTPUT = (tables.exceptions.HDF5ExtError, OSError)
+#: Errors from reading back a point's files when a stopped process left them unusable: a half-written
+#: trajectory, or one the checkpoint relies on that no longer opens (CheckpointError from the resume).
+UNREADABLE_OUTPUT = (tables.exceptions.HDF5ExtError, OSError, CheckpointError)
 
 STUDY_SCHEMA = {
     "base": (str, REQUIRED, ("a run input file", None), "run input describing the model, relative to the study file"),
