@@ -120,8 +120,8 @@ def test_ctrl_c_leaves_store_consistent_and_rerun_completes(tmp_path, beadsim_co
     path = _study(tmp_path, values="[1.5, 2.0, 2.5, 3.0]", steps=300000)
     out = tmp_path / "out"
     cmd = [*beadsim_command, "sweep", str(path), "--out", str(out), "--cluster", "local:2", "--quiet"]
-    # a terminal starts the command with Ctrl-C at its default action; inside the full test suite the pytest
-    # process has been seen to hold SIGINT ignored, which a child inherits (cause still open)
+    # a terminal starts the command with Ctrl-C at its default action; a test suite started with '&' from a shell
+    # without job control holds SIGINT ignored (POSIX shell rule; Python keeps it ignored), which a child inherits
     proc = subprocess.Popen(cmd, env=subprocess_env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
                             start_new_session=True,
                             preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
