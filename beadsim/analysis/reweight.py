@@ -300,7 +300,7 @@ def _overlap_threshold(value):
     return float(value)
 
 
-def neighbour_overlap(matrix, temperatures):
+def _neighbour_overlap(matrix, temperatures):
     """Overlap of each pair of neighbouring sampled temperatures (module notes).
 
     Parameters
@@ -358,7 +358,7 @@ def _curves(mbar, pooled, grid, n_beads, min_overlap):
     overlap = mbar.compute_overlap()
     for values in errors.values():
         values *= pooled.error_scale
-    sampled, pairs = neighbour_overlap(overlap["matrix"], pooled.temperatures)
+    sampled, pairs = _neighbour_overlap(overlap["matrix"], pooled.temperatures)
     hidden = _in_gaps(grid, sampled, pairs, min_overlap)
     for values in itertools.chain(means.values(), errors.values()):
         values[hidden] = np.nan
@@ -464,7 +464,7 @@ def heat_capacity_peak(pooled, n_beads, n_grid=401, n_bootstrap=100, seed=0, min
     if value is None:
         return Peak(None, None, None, 0, f"no peak inside the range: the heat capacity is largest at its edge "
                     f"(T = {grid[np.argmax(curve)]:.4g}); extend the temperatures past the transition")
-    sampled, pairs = neighbour_overlap(mbar.compute_overlap()["matrix"], pooled.temperatures)
+    sampled, pairs = _neighbour_overlap(mbar.compute_overlap()["matrix"], pooled.temperatures)
     if _in_gaps(value, sampled, pairs, min_overlap):
         return Peak(None, None, None, 0, f"the heat-capacity maximum (T = {value:.4g}) lies between sampled "
                     f"temperatures that overlap less than {min_overlap:g}: add temperatures there")
