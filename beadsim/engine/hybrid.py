@@ -24,7 +24,6 @@ from .._validate import positive, positive_int
 from ..errors import InputError
 from ..kernels import pivot as KP
 from ..model.build import stream_seed
-from ..model.potentials import incidence
 from .threads import threads_for
 
 log = logging.getLogger(__name__)
@@ -37,6 +36,17 @@ DYNAMICS_CAUTION = ("hybrid sampling moves chains by Monte Carlo jumps between L
                     "static averages (Rg, Re, shape, scattering, energies) are valid, but dynamics-derived "
                     "quantities (diffusion coefficients, relaxation and autocorrelation times in tau, "
                     "mean-square displacements) are meaningless for this run")
+
+
+def _incidence(n, terms):
+    """Terms (rows of bead indices) each bead belongs to, in compressed rows: int64 (n+1,), (m,)."""
+    terms = np.asarray(terms, dtype=np.int64)
+    beads = terms.ravel()
+    owner = np.repeat(np.arange(len(terms), dtype=np.int64), terms.shape[1])
+    order = np.argsort(beads, kind="stable")
+    start = np.zeros(n + 1, dtype=np.int64)
+    np.add.at(start, beads + 1, 1)
+    return np.cumsum(start), np.ascontiguousarray(owner[order])
 
 
 class HybridSampler:
@@ -106,8 +116,8 @@ class HybridSampler:
             raise InputError("hybrid sampling: no chain has an interior bead (chains of 3 or more beads are "
                              "needed for pivot and crankshaft moves)")
         ff = sim.compiled.arrays
-        self.bond_start, self.bond_of = ff[10], ff[11]
-        self.angle_start, self.angle_of = incidence(n, ff[7])
+        self.bond_start, self.bond_of = _incidence(n, ff[3])
+        self.angle_start, self.angle_of = _incidence(n, ff[7])
         self.width = float(sim.compiled.cutoff)
         n_buckets = int(KP.bucket_count(n)) if self.width > 0 else 1
         self.head = np.full(n_buckets, -1, dtype=np.int64)

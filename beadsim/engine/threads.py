@@ -10,7 +10,11 @@ from contextlib import contextmanager
 import numba
 
 from .._validate import positive_int
-from ..kernels.chunks import PARALLEL_MIN_BEADS
+
+#: Systems smaller than this run on one thread: a step of theirs (under half a millisecond) is too short
+#: for the six fork-join passes of a threaded step (measured in analysis/benchmarks.md: at 1,000 and
+#: 2,000 beads one thread ran 1.7-2.4 times faster than two).
+PARALLEL_MIN_BEADS = 4000
 
 
 def set_threads(threads):

@@ -10,12 +10,6 @@ from numba import njit
 
 N_CHUNKS = 256
 
-#: Systems smaller than this run on one thread (:func:`beadsim.engine.threads.threads_for`): a step of
-#: theirs (under half a millisecond) is too short for the six fork-join passes of a threaded step
-#: (measured in analysis/benchmarks.md: at 1,000 and 2,000 beads one thread ran 1.7-2.4 times faster
-#: than two). Kernels with a cheaper one-thread form use it below this size.
-PARALLEL_MIN_BEADS = 4000
-
 
 @njit(cache=True, inline="always")
 def chunk_count(n):

@@ -36,7 +36,6 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from .chunks import PARALLEL_MIN_BEADS, chunk_bounds, chunk_count
 from .neighbors import gather_rows, minimum_image, nearest_image
 
 PAIR_NONE, PAIR_LJ, PAIR_COS2, PAIR_TABLE = 0, 1, 2, 3
@@ -210,131 +209,49 @@ def pair_forces(pos, box, periodic, nlist, kinds, params, tables, force, info):
     return energy, virial, coincident.any()
 
 
-@njit(cache=True, inline="always")
-def bond_term(kind, p, r2, tables):
-    """Energy, f/r and status (``OK``, ``FENE_OVERSTRETCH`` or ``OUTSIDE_TABLE``) of one bond at squared length r2."""
-    if kind == BOND_FENE:
-        x = r2 / (p[1] * p[1])
-        if x >= 1.0:
-            return 0.0, 0.0, FENE_OVERSTRETCH
-        return -0.5 * p[0] * p[1] * p[1] * math.log(1.0 - x), -p[0] / (1.0 - x), OK
-    r = math.sqrt(r2)
-    if kind == BOND_HARMONIC:
-        return 0.5 * p[0] * (r - p[1]) ** 2, -p[0] * (r - p[1]) / r, OK
-    u, du, inside = hermite_table(tables[int(p[0])], p[1], p[2], int(p[3]), r)
-    if not inside:
-        return 0.0, 0.0, OUTSIDE_TABLE
-    return u, -du / r, OK
-
-
-@njit(cache=True, inline="always")
-def _bond_block(c, n_chunks, pos, box, periodic, bonds, bond_type, kinds, params, tables, to_rows, rows, failed,
-                force, part, last):
-    """Block ``c`` of :func:`bond_forces`: its energy and virial into ``part[c]``, its last failed bond and
-    status into ``last[c]``, and its forces into ``rows`` (``to_rows``) or straight onto the beads."""
-    n_bonds = bonds.shape[0]
-    lo, hi = chunk_bounds(n_bonds, n_chunks, c)
+@njit(cache=True)
+def bond_forces(pos, box, periodic, bonds, bond_type, kinds, params, tables, force, info):
+    """Add bond forces; return (energy, virial). Flags overstretched FENE bonds in ``info``."""
     energy = 0.0
     virial = 0.0
-    for b in range(lo, hi):
+    for b in range(bonds.shape[0]):
         i = bonds[b, 0]
         j = bonds[b, 1]
         t = bond_type[b]
+        kind = kinds[t]
+        p = params[t]
         dx = minimum_image(pos[j, 0] - pos[i, 0], box[0], periodic)
         dy = minimum_image(pos[j, 1] - pos[i, 1], box[1], periodic)
         dz = minimum_image(pos[j, 2] - pos[i, 2], box[2], periodic)
         r2 = dx * dx + dy * dy + dz * dz
-        u, f_r, status = bond_term(kinds[t], params[t], r2, tables)
-        if status != OK:
-            last[c, 0] = b
-            last[c, 1] = status
-            if to_rows:
-                failed[b] = True
-            continue
+        if kind == BOND_FENE:
+            x = r2 / (p[1] * p[1])
+            if x >= 1.0:
+                info[0] = FENE_OVERSTRETCH
+                info[1] = b
+                continue
+            u = -0.5 * p[0] * p[1] * p[1] * math.log(1.0 - x)
+            f_r = -p[0] / (1.0 - x)
+        elif kind == BOND_HARMONIC:
+            r = math.sqrt(r2)
+            u = 0.5 * p[0] * (r - p[1]) ** 2
+            f_r = -p[0] * (r - p[1]) / r
+        else:
+            r = math.sqrt(r2)
+            u, du, inside = hermite_table(tables[int(p[0])], p[1], p[2], int(p[3]), r)
+            if not inside:
+                info[0] = OUTSIDE_TABLE
+                info[1] = b
+                continue
+            f_r = -du / r
         energy += u
         virial += f_r * r2
-        if to_rows:
-            rows[b, 0] = f_r * dx
-            rows[b, 1] = f_r * dy
-            rows[b, 2] = f_r * dz
-        else:
-            force[i, 0] -= f_r * dx
-            force[i, 1] -= f_r * dy
-            force[i, 2] -= f_r * dz
-            force[j, 0] += f_r * dx
-            force[j, 1] += f_r * dy
-            force[j, 2] += f_r * dz
-    part[c, 0] = energy
-    part[c, 1] = virial
-
-
-@njit(cache=True, parallel=True)
-def bond_forces(pos, box, periodic, bonds, bond_type, kinds, params, tables, bond_start, bond_of, force, info):
-    """Add bond forces; return (energy, virial). Flags a failed bond in ``info``.
-
-    Fixed blocks of bonds sum their energy and virial; the block sums are
-    added in block order. In systems that run threaded (``PARALLEL_MIN_BEADS``
-    beads or more) each bond's force goes into a row, and each bead then adds
-    the rows of its own bonds in bond order; smaller systems, which run on one
-    thread, put the forces straight onto the beads in bond order. Either way
-    every force is what one serial pass over the bonds gives, bit for bit, and
-    nothing depends on the thread count. A bond that fails (beyond the FENE
-    limit or outside its table) adds nothing; ``info`` names the last such bond.
-
-    Parameters
-    ----------
-    pos : float64 (n, 3)
-    box : float64 (3,)
-    periodic : bool
-    bonds : int64 (n_bonds, 2)
-    bond_type : int64 (n_bonds,)
-    kinds : int64 (n_bond_types,)
-    params : float64 (n_bond_types, N_BOND_PARAMS)
-    tables : float64 (n_tables, n_points, 2)
-    bond_start, bond_of : int64 (n+1,), (2 n_bonds,)
-        Bonds of each bead in compressed rows, in bond order
-        (:func:`beadsim.model.potentials.incidence`).
-    force : float64 (n, 3)
-        Added to, epsilon/sigma.
-    info : int64 (2,)
-        Status, set to ``FENE_OVERSTRETCH`` or ``OUTSIDE_TABLE`` with the bond index.
-    """
-    n_bonds = bonds.shape[0]
-    n_chunks = chunk_count(n_bonds)
-    threaded = pos.shape[0] >= PARALLEL_MIN_BEADS
-    rows = np.empty((n_bonds if threaded else 0, 3))  # force on each bond's second bead
-    failed = np.zeros(n_bonds if threaded else 0, dtype=np.bool_)
-    part = np.zeros((n_chunks, 2))
-    last = np.full((n_chunks, 2), -1)  # last failed bond of each block and its status
-    if not threaded:  # a serial loop: blocks that write straight onto beads must not run at the same time
-        for c in range(n_chunks):
-            _bond_block(c, n_chunks, pos, box, periodic, bonds, bond_type, kinds, params, tables, False, rows,
-                        failed, force, part, last)
-    else:
-        for c in prange(n_chunks):
-            _bond_block(c, n_chunks, pos, box, periodic, bonds, bond_type, kinds, params, tables, True, rows,
-                        failed, force, part, last)
-        for i in prange(pos.shape[0]):
-            for k in range(bond_start[i], bond_start[i + 1]):
-                b = bond_of[k]
-                if failed[b]:
-                    continue
-                if bonds[b, 0] == i:
-                    force[i, 0] -= rows[b, 0]
-                    force[i, 1] -= rows[b, 1]
-                    force[i, 2] -= rows[b, 2]
-                else:
-                    force[i, 0] += rows[b, 0]
-                    force[i, 1] += rows[b, 1]
-                    force[i, 2] += rows[b, 2]
-    energy = 0.0
-    virial = 0.0
-    for c in range(n_chunks):
-        energy += part[c, 0]
-        virial += part[c, 1]
-        if last[c, 0] >= 0:
-            info[0] = last[c, 1]
-            info[1] = last[c, 0]
+        force[i, 0] -= f_r * dx
+        force[i, 1] -= f_r * dy
+        force[i, 2] -= f_r * dz
+        force[j, 0] += f_r * dx
+        force[j, 1] += f_r * dy
+        force[j, 2] += f_r * dz
     return energy, virial
 
 
@@ -394,22 +311,20 @@ def total_forces(pos, box, periodic, nlist, ff, force, energies, info):
         The Verlet list, as for :func:`pair_forces`.
     ff : tuple
         ``(pair_kinds, pair_params, tables, bonds, bond_type, bond_kinds,
-        bond_params, angles, angle_type, angle_params, bond_start, bond_of)``
-        as built by :meth:`beadsim.model.potentials.ForceField.compile`.
+        bond_params, angles, angle_type, angle_params)`` as built by
+        :meth:`beadsim.model.potentials.ForceField.compile`.
     energies : float64 (4,)
         Output: pair, bond, bending energy and the total virial.
     info : int64 (2,)
         Output status code and offending index (see module docstring).
     """
-    (pair_kinds, pair_params, tables, bonds, bond_type, bond_kinds, bond_params, angles, angle_type, angle_params,
-     bond_start, bond_of) = ff
+    pair_kinds, pair_params, tables, bonds, bond_type, bond_kinds, bond_params, angles, angle_type, angle_params = ff
     info[0] = OK
     info[1] = 0
     e_pair, w_pair, coincident = pair_forces(pos, box, periodic, nlist, pair_kinds, pair_params, tables, force, info)
     if coincident:
         raise ZeroDivisionError("two interacting beads at the same position")
-    e_bond, w_bond = bond_forces(pos, box, periodic, bonds, bond_type, bond_kinds, bond_params, tables, bond_start,
-                                 bond_of, force, info)
+    e_bond, w_bond = bond_forces(pos, box, periodic, bonds, bond_type, bond_kinds, bond_params, tables, force, info)
     e_bend, w_bend = bending_forces(pos, box, periodic, angles, angle_type, angle_params, force)
     energies[0] = e_pair
     energies[1] = e_bond

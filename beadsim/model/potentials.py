@@ -371,30 +371,6 @@ def lookup(registry, name, what):
     raise InputError(f"unknown {what} '{name}'{hint}; choose one of: {', '.join(registry)}")
 
 
-def incidence(n, terms):
-    """The terms (rows of bead indices: bonds, angles) each bead belongs to, in compressed rows.
-
-    Parameters
-    ----------
-    n : int
-        Number of beads.
-    terms : int64 (m, k)
-        Bead indices of each term.
-
-    Returns
-    -------
-    start, owner : int64 (n+1,), (m k,)
-        The terms of bead ``i`` are ``owner[start[i]:start[i+1]]``, in increasing order.
-    """
-    terms = np.asarray(terms, dtype=np.int64)
-    beads = terms.ravel()
-    owner = np.repeat(np.arange(len(terms), dtype=np.int64), terms.shape[1])
-    order = np.argsort(beads, kind="stable")
-    start = np.zeros(n + 1, dtype=np.int64)
-    np.add.at(start, beads + 1, 1)
-    return np.cumsum(start), np.ascontiguousarray(owner[order])
-
-
 class CompiledForceField:
     """Arrays the kernels need, produced by :meth:`ForceField.compile`.
 
@@ -509,7 +485,7 @@ class ForceField:
         for k, t in enumerate(tables):
             table_arr[k, :t.n_points] = t.values
         arrays = (pair_kinds, pair_params, table_arr, system.bonds, system.bond_types, bond_kinds,
-                  bond_params, angles, angle_type, angle_params, *incidence(system.n_beads, system.bonds))
+                  bond_params, angles, angle_type, angle_params)
         excl_start, excl = self.exclusions(system)
         return CompiledForceField(arrays, cutoff, excl_start, excl)
 
