@@ -22,7 +22,6 @@ step before it stops. Every state is checked (:mod:`beadsim.engine.health`)
 before it is written, so a checkpoint never holds a blown-up state.
 """
 
-import contextlib
 import hashlib
 import json
 import logging
@@ -39,7 +38,7 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
-from .config import settings_hash, to_toml
+from .config import load_toml, non_default_settings, settings_hash, to_toml
 from .engine.health import guarded
 from .engine.hybrid import DYNAMICS_CAUTION, HybridSampler
 from .engine.integrators import make_integrator
@@ -210,8 +209,12 @@ class _Recorder:
 def prepare_folder(out, settings, resume, overwrite, allow_longer=False):
     """Create or check the output folder; refuse to mix two different runs.
 
-    With ``allow_longer``, a resumed run may ask for more production steps than
-    the run in the folder (sampling extended to reach a target precision).
+    Two runs are the same when their settings differ from the defaults in the same
+    keys and values (:func:`beadsim.config.non_default_settings`), so a folder
+    written by a version that lacked a key or section added since with a default
+    still resumes; its ``input.toml`` is then rewritten with every key. With
+    ``allow_longer``, a resumed run may ask for more production steps than the run
+    in the folder (sampling extended to reach a target precision).
 
     Raises
     ------
@@ -229,15 +232,15 @@ def prepare_folder(out, settings, resume, overwrite, allow_longer=False):
                          "folder with --out") from None
     existing = out / INPUT_FILE
     if existing.exists() and not overwrite:
-        same = existing.read_text(encoding="utf-8") == to_toml(settings)
         if not resume:
             raise InputError(f"{out}: folder already holds a run ({INPUT_FILE}); use --resume to continue it, "
                              "--overwrite to replace it, or --out for a new folder")
-        if not same and allow_longer and _only_longer(existing, settings):
-            existing.write_text(to_toml(settings), encoding="utf-8")
-        elif not same:
+        stored = load_toml(existing)
+        if not (_same_run(stored, settings) or (allow_longer and _only_longer(stored, settings))):
             raise InputError(f"{out}: folder holds a run with a different input; --resume needs the same input "
                              "file (or use --overwrite or another --out)")
+        if existing.read_text(encoding="utf-8") != to_toml(settings):
+            existing.write_text(to_toml(settings), encoding="utf-8")
     if overwrite:
         for name in (INPUT_FILE, TABLE_FILE, CHECKPOINT_FILE, SUMMARY_FILE, settings["output"]["trajectory"]):
             (out / name).unlink(missing_ok=True)
@@ -245,14 +248,17 @@ def prepare_folder(out, settings, resume, overwrite, allow_longer=False):
     return out
 
 
-def _only_longer(existing, settings):
-    """True if the run in ``existing`` differs from ``settings`` only by fewer production steps."""
-    from .config import load_toml
-    old_steps = load_toml(existing).get("run", {}).get("production_steps")
+def _same_run(stored, settings):
+    """True if a stored resolved input (as read by ``load_toml``) describes the run of ``settings``."""
+    return non_default_settings(stored) == non_default_settings(settings)
+
+
+def _only_longer(stored, settings):
+    """True if the stored run differs from ``settings`` only by fewer production steps."""
+    old_steps = stored.get("run", {}).get("production_steps")
     if not isinstance(old_steps, int) or old_steps > settings["run"]["production_steps"]:
         return False
-    shorter = {**settings, "run": {**settings["run"], "production_steps": old_steps}}
-    return existing.read_text(encoding="utf-8") == to_toml(shorter)
+    return _same_run(stored, {**settings, "run": {**settings["run"], "production_steps": old_steps}})
 
 
 def run(settings, out, *, resume=False, overwrite=False, progress=True, allow_longer=False):
@@ -336,7 +342,11 @@ class _StopRequest:
     The loop checks :attr:`signal` after each recorded snapshot, writes a
     checkpoint at that step and stops. A second signal stops at once (the
     last checkpoint is then the previous one). Handlers are installed only
-    in the main thread (Python allows no other) and restored on exit.
+    in the main thread (Python allows no other) and restored on exit, however
+    the block ends. A signal the caller ignores (``SIG_IGN``, as a shell
+    without job control sets SIGINT for a command started with ``&``) stays
+    ignored, as Python itself leaves it; so does one whose handler was set
+    outside Python (``signal.getsignal`` gives None), which could not be put back.
     """
 
     SIGNALS = (signal.SIGINT, signal.SIGTERM)
@@ -353,13 +363,14 @@ class _StopRequest:
     def __enter__(self):
         if threading.current_thread() is threading.main_thread():
             for sig in self.SIGNALS:
-                self._saved[sig] = signal.signal(sig, self._handle)
+                previous = signal.getsignal(sig)
+                if previous is not None and previous != signal.SIG_IGN:
+                    self._saved[sig] = signal.signal(sig, self._handle)
         return self
 
     def __exit__(self, *exc):
         for sig, handler in self._saved.items():
-            with contextlib.suppress(ValueError, TypeError):
-                signal.signal(sig, handler)
+            signal.signal(sig, handler)
 
 
 def _progress(total, start, enabled):

@@ -3,7 +3,9 @@ and beadsim leaves the caller's signal handlers as it found them, however a run 
 
 The caller's handler is a Python function installed by the test, so any change (beadsim's own handler left
 behind, or the default put back) shows as a different object from ``signal.getsignal`` (Python's ``signal``
-module is the reference).
+module is the reference). A signal the caller ignores stays ignored during a run, as Python itself leaves
+SIGINT ignored when it starts with SIGINT ignored (the POSIX shell rule for commands started with ``&``
+without job control).
 """
 
 import os
@@ -95,6 +97,19 @@ def test_handlers_are_unchanged_after_a_run_that_ends_normally_or_blows_up(tmp_p
     with pytest.raises(InstabilityError):
         run(read_settings(tmp_path / "wild.toml"), tmp_path / "wild", progress=False)
     assert _handlers() == before
+
+
+def test_an_ignored_sigint_stays_ignored_during_a_run(tmp_path, monkeypatch):
+    (tmp_path / "chain.toml").write_text(RUN, encoding="utf-8")
+    saved = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        _signal_at(monkeypatch, signal.SIGINT, SIGNAL_STEP)
+        status = cli.main(["run", str(tmp_path / "chain.toml"), "--out", str(tmp_path / "out"), "--quiet"])
+        assert signal.getsignal(signal.SIGINT) == signal.SIG_IGN
+    finally:
+        signal.signal(signal.SIGINT, saved)
+    assert status == 0  # the run did not stop
+    assert int(read_checkpoint(tmp_path / "out" / "checkpoint.npz")[0]["step_count"]) == 2000
 
 
 class _FailingBackend:
