@@ -15,6 +15,7 @@ from pathlib import Path
 import pytest
 
 import beadsim
+from beadsim import cli
 
 #: Folder holding the ``beadsim`` package, for the ``PYTHONPATH`` of subprocesses.
 PACKAGE_ROOT = str(Path(beadsim.__file__).resolve().parents[1])
@@ -75,6 +76,15 @@ def pytest_sessionfinish(session, exitstatus):
         Path(path).write_text(json.dumps({"long": bool(session.config.getoption("--faults-long")),
                                           "exit_status": int(exitstatus), "faults": _TALLY.as_dict()}, indent=2)
                               + "\n", encoding="utf-8")
+
+
+@pytest.fixture(scope="module")
+def reference(request, tmp_path_factory):
+    """Output folder of the requesting module's input ``RUN`` (TOML text) run to its end without a fault."""
+    folder = tmp_path_factory.mktemp("reference")
+    (folder / "chain.toml").write_text(request.module.RUN, encoding="utf-8")
+    assert cli.main(["run", str(folder / "chain.toml"), "--out", str(folder / "out"), "--quiet"]) == 0
+    return folder / "out"
 
 
 @pytest.fixture(scope="session")

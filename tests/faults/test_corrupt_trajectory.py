@@ -23,14 +23,6 @@ RUN = ("[chains]\nlength = 16\n[run]\nseed = 9\nequilibration_steps = 200\nprodu
 STOP_AFTER_CHECKPOINT = 3
 
 
-@pytest.fixture(scope="module")
-def reference(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("reference")
-    (folder / "chain.toml").write_text(RUN, encoding="utf-8")
-    assert cli.main(["run", str(folder / "chain.toml"), "--out", str(folder / "out"), "--quiet"]) == 0
-    return folder / "out"
-
-
 def _stopped_run(tmp_path, monkeypatch):
     """A run stopped (as by Ctrl-C) right after its STOP_AFTER_CHECKPOINT-th checkpoint; returns its folder."""
     (tmp_path / "chain.toml").write_text(RUN, encoding="utf-8")

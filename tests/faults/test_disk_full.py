@@ -12,7 +12,6 @@ import os
 
 import mdtraj
 import numpy as np
-import pytest
 import tables
 
 from beadsim import cli
@@ -103,14 +102,6 @@ def fail_join(monkeypatch, k):
 
 WRITERS = {"table": (fail_table, "observables.csv"), "trajectory part": (fail_frame, "part_"),
            "checkpoint": (fail_checkpoint, "checkpoint.npz"), "trajectory join": (fail_join, "trajectory.h5")}
-
-
-@pytest.fixture(scope="module")
-def reference(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("reference")
-    (folder / "chain.toml").write_text(RUN, encoding="utf-8")
-    assert cli.main(["run", str(folder / "chain.toml"), "--out", str(folder / "out"), "--quiet"]) == 0
-    return folder / "out"
 
 
 def cases(long):

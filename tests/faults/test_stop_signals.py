@@ -48,14 +48,6 @@ def _handlers():
     return {sig: signal.getsignal(sig) for sig in SIGNALS}
 
 
-@pytest.fixture(scope="module")
-def reference(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("reference")
-    (folder / "chain.toml").write_text(RUN, encoding="utf-8")
-    assert cli.main(["run", str(folder / "chain.toml"), "--out", str(folder / "out"), "--quiet"]) == 0
-    return folder / "out"
-
-
 def _signal_at(monkeypatch, sig, step):
     """Make the run send ``sig`` to its own process when it records ``step``."""
     append = _Recorder.append
