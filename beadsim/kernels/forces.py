@@ -36,6 +36,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
+from .chunks import chunk_bounds, chunk_count
 from .neighbors import gather_rows, minimum_image, nearest_image
 
 PAIR_NONE, PAIR_LJ, PAIR_COS2, PAIR_TABLE = 0, 1, 2, 3
@@ -209,12 +210,61 @@ def pair_forces(pos, box, periodic, nlist, kinds, params, tables, force, info):
     return energy, virial, coincident.any()
 
 
+#: Fewer bonds than this are summed on the calling thread: two fork-joins would cost more than they save.
+PARALLEL_MIN_BONDS = 2000
+
+
 @njit(cache=True)
-def bond_forces(pos, box, periodic, bonds, bond_type, kinds, params, tables, force, info):
-    """Add bond forces; return (energy, virial). Flags overstretched FENE bonds in ``info``."""
+def bond_chunks(bonds, n):
+    """Group bonds by the work chunk (:mod:`beadsim.kernels.chunks`) of their lower bead, for :func:`bond_forces`.
+
+    A bond whose beads lie in one chunk or in two neighbouring chunks belongs
+    to the chunk of its lower bead; the rest (ring closures, cross-links
+    between distant beads) form a last group summed after the others.
+
+    Parameters
+    ----------
+    bonds : int64 (n_bonds, 2)
+    n : int
+        Number of beads.
+
+    Returns
+    -------
+    bond_order : int64 (n_bonds,)
+        Bond indices, by group, in increasing index within a group.
+    bond_start : int64 (chunk_count(n) + 2,)
+        Group ``c`` is ``bond_order[bond_start[c]:bond_start[c + 1]]``; group ``chunk_count(n)`` is the last one.
+    """
+    n_chunks = chunk_count(n)
+    chunk_of = np.empty(max(n, 1), dtype=np.int64)
+    for c in range(n_chunks):
+        lo, hi = chunk_bounds(n, n_chunks, c)
+        chunk_of[lo:hi] = c
+    group = np.empty(bonds.shape[0], dtype=np.int64)
+    bond_start = np.zeros(n_chunks + 2, dtype=np.int64)
+    for b in range(bonds.shape[0]):
+        lo_chunk = chunk_of[min(bonds[b, 0], bonds[b, 1])]
+        hi_chunk = chunk_of[max(bonds[b, 0], bonds[b, 1])]
+        group[b] = lo_chunk if hi_chunk - lo_chunk <= 1 else n_chunks
+        bond_start[group[b] + 1] += 1
+    for c in range(n_chunks + 1):
+        bond_start[c + 1] += bond_start[c]
+    fill = bond_start[:-1].copy()
+    bond_order = np.empty(bonds.shape[0], dtype=np.int64)
+    for b in range(bonds.shape[0]):
+        bond_order[fill[group[b]]] = b
+        fill[group[b]] += 1
+    return bond_order, bond_start
+
+
+@njit(cache=True)
+def _bond_group(g, pos, box, periodic, bonds, bond_type, kinds, params, tables, bond_order, bond_start, force,
+                part, flag):
+    """Add the forces of bond group ``g``; its energy and virial go to ``part[g]``, a bad bond to ``flag[g]``."""
     energy = 0.0
     virial = 0.0
-    for b in range(bonds.shape[0]):
+    for m in range(bond_start[g], bond_start[g + 1]):
+        b = bond_order[m]
         i = bonds[b, 0]
         j = bonds[b, 1]
         t = bond_type[b]
@@ -227,8 +277,8 @@ def bond_forces(pos, box, periodic, bonds, bond_type, kinds, params, tables, for
         if kind == BOND_FENE:
             x = r2 / (p[1] * p[1])
             if x >= 1.0:
-                info[0] = FENE_OVERSTRETCH
-                info[1] = b
+                flag[g, 0] = FENE_OVERSTRETCH
+                flag[g, 1] = b
                 continue
             u = -0.5 * p[0] * p[1] * p[1] * math.log(1.0 - x)
             f_r = -p[0] / (1.0 - x)
@@ -240,8 +290,8 @@ def bond_forces(pos, box, periodic, bonds, bond_type, kinds, params, tables, for
             r = math.sqrt(r2)
             u, du, inside = hermite_table(tables[int(p[0])], p[1], p[2], int(p[3]), r)
             if not inside:
-                info[0] = OUTSIDE_TABLE
-                info[1] = b
+                flag[g, 0] = OUTSIDE_TABLE
+                flag[g, 1] = b
                 continue
             f_r = -du / r
         energy += u
@@ -252,6 +302,46 @@ def bond_forces(pos, box, periodic, bonds, bond_type, kinds, params, tables, for
         force[j, 0] += f_r * dx
         force[j, 1] += f_r * dy
         force[j, 2] += f_r * dz
+    part[g, 0] = energy
+    part[g, 1] = virial
+
+
+@njit(cache=True, parallel=True)
+def bond_forces(pos, box, periodic, bonds, bond_type, kinds, params, tables, bond_order, bond_start, force, info):
+    """Add bond forces; return (energy, virial). Flags overstretched FENE bonds in ``info``.
+
+    Bond groups (:func:`bond_chunks`) of even chunks run in parallel, then
+    those of odd chunks: a group writes only into its own chunk and the next,
+    so no two groups of one phase touch one bead, and every bead receives its
+    bond forces in one fixed order whatever the thread count. The last group
+    follows on one thread. Energy, virial and the first flagged bond are taken
+    in group order.
+    """
+    n_groups = bond_start.shape[0] - 1
+    n_chunks = n_groups - 1
+    part = np.zeros((n_groups, 2))
+    flag = np.zeros((n_groups, 2), dtype=np.int64)
+    for phase in range(2):
+        if bonds.shape[0] >= PARALLEL_MIN_BONDS:
+            for m in prange((n_chunks - phase + 1) // 2):
+                _bond_group(phase + 2 * m, pos, box, periodic, bonds, bond_type, kinds, params, tables, bond_order,
+                            bond_start, force, part, flag)
+        else:
+            for m in range((n_chunks - phase + 1) // 2):
+                _bond_group(phase + 2 * m, pos, box, periodic, bonds, bond_type, kinds, params, tables, bond_order,
+                            bond_start, force, part, flag)
+    _bond_group(n_chunks, pos, box, periodic, bonds, bond_type, kinds, params, tables, bond_order, bond_start, force,
+                part, flag)
+    energy = 0.0
+    virial = 0.0
+    flagged = False
+    for g in range(n_groups):
+        energy += part[g, 0]
+        virial += part[g, 1]
+        if flag[g, 0] != OK and not flagged:
+            info[0] = flag[g, 0]
+            info[1] = flag[g, 1]
+            flagged = True
     return energy, virial
 
 
@@ -311,20 +401,23 @@ def total_forces(pos, box, periodic, nlist, ff, force, energies, info):
         The Verlet list, as for :func:`pair_forces`.
     ff : tuple
         ``(pair_kinds, pair_params, tables, bonds, bond_type, bond_kinds,
-        bond_params, angles, angle_type, angle_params)`` as built by
+        bond_params, angles, angle_type, angle_params, bond_order, bond_start)``
+        (the last two from :func:`bond_chunks`) as built by
         :meth:`beadsim.model.potentials.ForceField.compile`.
     energies : float64 (4,)
         Output: pair, bond, bending energy and the total virial.
     info : int64 (2,)
         Output status code and offending index (see module docstring).
     """
-    pair_kinds, pair_params, tables, bonds, bond_type, bond_kinds, bond_params, angles, angle_type, angle_params = ff
+    (pair_kinds, pair_params, tables, bonds, bond_type, bond_kinds, bond_params, angles, angle_type, angle_params,
+     bond_order, bond_start) = ff
     info[0] = OK
     info[1] = 0
     e_pair, w_pair, coincident = pair_forces(pos, box, periodic, nlist, pair_kinds, pair_params, tables, force, info)
     if coincident:
         raise ZeroDivisionError("two interacting beads at the same position")
-    e_bond, w_bond = bond_forces(pos, box, periodic, bonds, bond_type, bond_kinds, bond_params, tables, force, info)
+    e_bond, w_bond = bond_forces(pos, box, periodic, bonds, bond_type, bond_kinds, bond_params, tables, bond_order,
+                                 bond_start, force, info)
     e_bend, w_bend = bending_forces(pos, box, periodic, angles, angle_type, angle_params, force)
     energies[0] = e_pair
     energies[1] = e_bond

@@ -484,8 +484,9 @@ class ForceField:
         table_arr = np.zeros((max(len(tables), 1), width, 2))
         for k, t in enumerate(tables):
             table_arr[k, :t.n_points] = t.values
+        bond_order, bond_start = K.bond_chunks(system.bonds, system.n_beads)
         arrays = (pair_kinds, pair_params, table_arr, system.bonds, system.bond_types, bond_kinds,
-                  bond_params, angles, angle_type, angle_params)
+                  bond_params, angles, angle_type, angle_params, bond_order, bond_start)
         excl_start, excl = self.exclusions(system)
         return CompiledForceField(arrays, cutoff, excl_start, excl)
 

@@ -67,6 +67,35 @@ def test_kernel_forces_equal_numpy_reference(systems):
         np.testing.assert_allclose(e_k, e_r, rtol=1e-10, atol=1e-10 * np.abs(e_r).max(), err_msg=name)
 
 
+def test_bond_groups_with_cross_links_equal_numpy_reference():
+    """Above PARALLEL_MIN_BONDS the bond forces run in chunk groups; cross-links between distant beads go
+    to the last group. Forces and energies still equal the NumPy twin to 1e-10 relative (issue 2), and
+    reversing the bond list changes nothing beyond rounding."""
+    from scipy.spatial import cKDTree
+
+    from beadsim.kernels.forces import PARALLEL_MIN_BONDS, bond_chunks
+
+    melt = bs.build_chains([100] * 25, density=0.5, seed=8, min_distance=0.85)
+    wrapped = melt.positions - melt.box.lengths * np.floor(melt.positions / melt.box.lengths)
+    close = cKDTree(wrapped, boxsize=melt.box.lengths).query_pairs(1.2, output_type="ndarray")
+    # cross-links: close in space, far apart in index, pairs whose images are nearest as unwrapped
+    d = melt.positions[close[:, 1]] - melt.positions[close[:, 0]]
+    links = close[(np.abs(close[:, 1] - close[:, 0]) > 500) & (np.abs(d).max(axis=1) < 1.2)][:40]
+    assert len(links) == 40
+    bonds = np.concatenate([melt.bonds, links])
+    assert len(bonds) >= PARALLEL_MIN_BONDS
+    ff = bs.ForceField(bs.WCA(), bs.FENE())
+    for order in (bonds, bonds[::-1]):
+        system = bs.System(melt.positions, melt.chain_lengths, bonds=order, box=melt.box)
+        bond_order, bond_start = bond_chunks(system.bonds, system.n_beads)
+        assert bond_start[-1] - bond_start[-2] == 40          # the cross-links form the last group
+        assert sorted(bond_order) == list(range(len(bonds)))
+        f_k, e_k = _kernel(system, ff)
+        f_r, e_r = reference_forces(system, ff)
+        assert np.abs(f_k - f_r).max() <= 1e-10 * np.abs(f_r).max()
+        np.testing.assert_allclose(e_k, e_r, rtol=1e-10, atol=1e-10 * np.abs(e_r).max())
+
+
 def test_total_force_vanishes_on_isolated_system(systems):
     """Newton's third law: the net force on a closed system is zero (exact)."""
     for name, system, ff in systems:
