@@ -210,7 +210,7 @@ def pair_forces(pos, box, periodic, nlist, kinds, params, tables, force, info):
     return energy, virial, coincident.any()
 
 
-#: Fewer bonds than this are summed on the calling thread: two fork-joins would cost more than they save.
+#: Below this many bonds, all bonds form one group summed on one thread: two fork-joins would cost more.
 PARALLEL_MIN_BONDS = 2000
 
 
@@ -220,7 +220,8 @@ def bond_chunks(bonds, n):
 
     A bond whose beads lie in one chunk or in two neighbouring chunks belongs
     to the chunk of its lower bead; the rest (ring closures, cross-links
-    between distant beads) form a last group summed after the others.
+    between distant beads) form a last group. With fewer than
+    ``PARALLEL_MIN_BONDS`` bonds every bond is in the last group.
 
     Parameters
     ----------
@@ -240,12 +241,12 @@ def bond_chunks(bonds, n):
     for c in range(n_chunks):
         lo, hi = chunk_bounds(n, n_chunks, c)
         chunk_of[lo:hi] = c
-    group = np.empty(bonds.shape[0], dtype=np.int64)
+    group = np.full(bonds.shape[0], n_chunks)
     bond_start = np.zeros(n_chunks + 2, dtype=np.int64)
     for b in range(bonds.shape[0]):
         lo_chunk = chunk_of[min(bonds[b, 0], bonds[b, 1])]
-        hi_chunk = chunk_of[max(bonds[b, 0], bonds[b, 1])]
-        group[b] = lo_chunk if hi_chunk - lo_chunk <= 1 else n_chunks
+        if bonds.shape[0] >= PARALLEL_MIN_BONDS and chunk_of[max(bonds[b, 0], bonds[b, 1])] - lo_chunk <= 1:
+            group[b] = lo_chunk
         bond_start[group[b] + 1] += 1
     for c in range(n_chunks + 1):
         bond_start[c + 1] += bond_start[c]
@@ -258,13 +259,13 @@ def bond_chunks(bonds, n):
 
 
 @njit(cache=True)
-def _bond_group(g, pos, box, periodic, bonds, bond_type, kinds, params, tables, bond_order, bond_start, force,
-                part, flag):
-    """Add the forces of bond group ``g``; its energy and virial go to ``part[g]``, a bad bond to ``flag[g]``."""
+def _bond_group(g, pos, box, periodic, bonds, bond_type, kinds, params, tables, bond_order, bond_start, force, part,
+                flag):
+    """Add the forces of bond group ``g``; its energy and virial go to ``part[g]``, its last bad bond to ``flag[g]``."""
     energy = 0.0
     virial = 0.0
-    for m in range(bond_start[g], bond_start[g + 1]):
-        b = bond_order[m]
+    for k in range(bond_start[g], bond_start[g + 1]):
+        b = bond_order[k]
         i = bonds[b, 0]
         j = bonds[b, 1]
         t = bond_type[b]
@@ -307,38 +308,42 @@ def _bond_group(g, pos, box, periodic, bonds, bond_type, kinds, params, tables, 
 
 
 @njit(cache=True, parallel=True)
+def _bond_phases(pos, box, periodic, bonds, bond_type, kinds, params, tables, bond_order, bond_start, force, part,
+                 flag):
+    """Bond groups of even chunks in parallel, then those of odd chunks (see :func:`bond_forces`)."""
+    n_chunks = bond_start.shape[0] - 2
+    for phase in range(2):
+        for m in prange((n_chunks - phase + 1) // 2):
+            _bond_group(phase + 2 * m, pos, box, periodic, bonds, bond_type, kinds, params, tables, bond_order,
+                        bond_start, force, part, flag)
+
+
+@njit(cache=True)
 def bond_forces(pos, box, periodic, bonds, bond_type, kinds, params, tables, bond_order, bond_start, force, info):
-    """Add bond forces; return (energy, virial). Flags overstretched FENE bonds in ``info``.
+    """Add bond forces; return (energy, virial). Flags an overstretched FENE bond or one off its table in ``info``.
 
     Bond groups (:func:`bond_chunks`) of even chunks run in parallel, then
     those of odd chunks: a group writes only into its own chunk and the next,
     so no two groups of one phase touch one bead, and every bead receives its
     bond forces in one fixed order whatever the thread count. The last group
-    follows on one thread. Energy, virial and the first flagged bond are taken
-    in group order.
+    follows on the calling thread. Energies and virials are summed in group
+    order, and a bad bond of the first group that has one is reported.
     """
     n_groups = bond_start.shape[0] - 1
-    n_chunks = n_groups - 1
     part = np.zeros((n_groups, 2))
-    flag = np.zeros((n_groups, 2), dtype=np.int64)
-    for phase in range(2):
-        if bonds.shape[0] >= PARALLEL_MIN_BONDS:
-            for m in prange((n_chunks - phase + 1) // 2):
-                _bond_group(phase + 2 * m, pos, box, periodic, bonds, bond_type, kinds, params, tables, bond_order,
-                            bond_start, force, part, flag)
-        else:
-            for m in range((n_chunks - phase + 1) // 2):
-                _bond_group(phase + 2 * m, pos, box, periodic, bonds, bond_type, kinds, params, tables, bond_order,
-                            bond_start, force, part, flag)
-    _bond_group(n_chunks, pos, box, periodic, bonds, bond_type, kinds, params, tables, bond_order, bond_start, force,
-                part, flag)
+    flag = np.full((n_groups, 2), -1)
+    if bond_start[n_groups - 1] > 0:  # not every bond in the last group
+        _bond_phases(pos, box, periodic, bonds, bond_type, kinds, params, tables, bond_order, bond_start, force, part,
+                     flag)
+    _bond_group(n_groups - 1, pos, box, periodic, bonds, bond_type, kinds, params, tables, bond_order, bond_start,
+                force, part, flag)
     energy = 0.0
     virial = 0.0
     flagged = False
     for g in range(n_groups):
         energy += part[g, 0]
         virial += part[g, 1]
-        if flag[g, 0] != OK and not flagged:
+        if flag[g, 0] >= 0 and not flagged:
             info[0] = flag[g, 0]
             info[1] = flag[g, 1]
             flagged = True
