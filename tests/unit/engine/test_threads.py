@@ -30,7 +30,9 @@ def _melt_state(threads, n_beads):
 
 
 def test_one_and_two_threads_end_in_the_same_state():
-    n_beads = max(PARALLEL_MIN_BEADS, 4 * N_CHUNKS)  # large enough to run threaded
+    # large enough to run threaded, with enough cell layers (LJ 2.5 at density 0.85) for several
+    # force-loop blocks, and over 2,000 bonds so the bond groups run in parallel too
+    n_beads = max(PARALLEL_MIN_BEADS, 4 * N_CHUNKS, 4000)
     one, two = _melt_state(1, n_beads), _melt_state(2, n_beads)
     assert one[3] == two[3] > 0  # the same list rebuilds happened
     for a, b in zip(one[:3], two[:3]):
