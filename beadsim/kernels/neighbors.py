@@ -2,10 +2,17 @@
 
 Beads are binned into cubic cells at least ``r_list`` wide. In a periodic box the
 cells tile the box and are indexed directly. In an open box the cell coordinates
-are unbounded, so cells are hashed into ``2**k >= 2 n`` buckets (Teschner et al.,
-VMV 2003): memory stays O(n) however swollen the chain, and a hash collision only
-adds candidates that the distance test then rejects. Neighbour buckets of a cell
-are de-duplicated so small periodic grids and collisions never double-count.
+are unbounded, so the list's cells are indexed directly along z only, over the
+beads' extent, and hashed within each z layer into ``2**k`` buckets, at least
+twice the mean layer population (spatial hashing: Teschner et al., VMV 2003):
+memory stays O(n) however swollen the chain, a hash collision only adds
+candidates that the distance test then rejects, and slots still come in whole
+z layers, so open boxes get the same parallel force-loop blocks as periodic ones.
+(Beads spread over more than 2 n layers, such as chains that drifted far apart,
+have all three coordinates hashed instead, and one block.)
+Neighbour buckets of a cell are de-duplicated so small periodic grids and
+collisions never double-count. (:func:`_bucket` with cell counts of ones hashes
+all three coordinates; the chain builders and the pivot moves use that form.)
 
 The list lives in its own numbering: beads sorted by bucket ("slots"), with
 ``order[slot]`` the user's index. Rows are compressed (``start[s]:start[s+1]``
@@ -75,19 +82,41 @@ def _cell_layout(pos, box, periodic, r_list):
         for i in range(n):
             for d in range(3):
                 coords[i, d] = int(math.floor((pos[i, d] - lo[d]) / r_list))
-        n_buckets = 1
-        while n_buckets < 2 * n:
-            n_buckets *= 2
+        layers = coords[:, 2].max() + 1 if n else 1
+        if layers <= 2 * n:
+            # hashed z layers: ncell = (0, buckets per layer, layers); ncell[0] == 0 marks the layout
+            per_layer = 8
+            while per_layer * layers < 2 * n:
+                per_layer *= 2
+            ncell[0] = 0
+            ncell[1] = per_layer
+            ncell[2] = layers
+            n_buckets = per_layer * layers
+        else:
+            # beads spread far apart along z (chains drifted apart): hash all three coordinates, one block
+            n_buckets = 1
+            while n_buckets < 2 * n:
+                n_buckets *= 2
     return coords, ncell, n_buckets
 
 
 @njit(cache=True, inline="always")
 def _bucket(cx, cy, cz, ncell, periodic, n_buckets):
+    """Bucket of cell (cx, cy, cz); -1 for a cell outside the hashed layers of an open-box list.
+
+    Periodic: the cell index on an ``ncell`` grid. Open, ``ncell[0] == 0``: z
+    layer ``cz`` (of ``ncell[2]``) times ``ncell[1]`` plus a hash of (cx, cy).
+    Open otherwise: a hash of all three coordinates into ``n_buckets``.
+    """
     if periodic:
         cx = cx % ncell[0]
         cy = cy % ncell[1]
         cz = cz % ncell[2]
         return cx + ncell[0] * (cy + ncell[1] * cz)
+    if ncell[0] == 0:
+        if cz < 0 or cz >= ncell[2]:
+            return -1
+        return cz * ncell[1] + (((cx * _HASH_X) ^ (cy * _HASH_Y)) & (ncell[1] - 1))
     h = (cx * _HASH_X) ^ (cy * _HASH_Y) ^ (cz * _HASH_Z)
     return h & (n_buckets - 1)
 
@@ -105,14 +134,15 @@ def cell_stencil(cx, cy, cz, ncell, periodic, n_buckets, near):
     """Distinct buckets of cell (cx, cy, cz) and its 26 neighbours, in a fixed order.
 
     Writes them to ``near`` (int64 (27,)) and returns how many there are: fewer
-    than 27 on small periodic grids and on hash collisions.
+    than 27 on small periodic grids, on hash collisions and at the first and
+    last layer of an open-box list.
     """
     n_near = 0
     for ox in range(-1, 2):
         for oy in range(-1, 2):
             for oz in range(-1, 2):
                 b = _bucket(cx + ox, cy + oy, cz + oz, ncell, periodic, n_buckets)
-                seen = False
+                seen = b < 0
                 for m in range(n_near):
                     if near[m] == b:
                         seen = True
@@ -182,16 +212,23 @@ def _phase_makespan(layers, blocks, threads):
 def _layer_blocks(n, ncell, periodic, offsets, block_start):
     """Split the slots into blocks of whole layers of cells for the phased force loop; return their count.
 
-    Slots run through the cells x fastest, so in a periodic box a row reaches
-    forward (round the seam too) by at most one layer of cells. Blocks of
+    Slots run through the cells layer by layer in z (in an open box through
+    the hashed buckets of each layer), so a row reaches forward by at most one
+    layer of cells (round the seam too, in a periodic box). Blocks of
     whole layers then write only into themselves and the next block, and an
     even number of them needs two phases (:func:`colour_blocks`). Of the even
     block counts, the one whose phases split most evenly over two threads,
     then four, then eight, is taken (more blocks on a tie); it depends on the layer
     count alone, never on the threads in use, so sums do not either. With 11
     layers, for example, 10 blocks give two threads 6 layers' time against 7
-    for 8 blocks. Open boxes hash their cells, so the list has no such order:
-    one block. ``block_start`` (int64 (>= MAX_BLOCKS + 1,)) receives the block bounds.
+    for 8 blocks.
+
+    The layers of a chain in an open box hold very different numbers of
+    beads, so there the block count is a multiple of four, at most 16 and at
+    most half the layers, and each bound is the first layer boundary at or
+    past an equal share of the beads. Fewer than 4 layers (8 in an open box)
+    make one block. ``block_start`` (int64 (>= MAX_BLOCKS + 1,)) receives the
+    block bounds.
     """
     layers = ncell[2]
     blocks = 1
@@ -202,9 +239,20 @@ def _layer_blocks(n, ncell, periodic, offsets, block_start):
             if spans <= best:
                 best = spans
                 blocks = b
-    per_layer = ncell[0] * ncell[1]
-    for c in range(blocks):
-        block_start[c] = offsets[per_layer * ((c * layers) // blocks)]
+        per_layer = ncell[0] * ncell[1]
+        for c in range(blocks):
+            block_start[c] = offsets[per_layer * ((c * layers) // blocks)]
+    elif not periodic and layers >= 8:
+        blocks = min(16, layers // 2) // 4 * 4
+        per_layer = ncell[1]
+        layer = 0
+        for c in range(blocks):
+            # the first layer boundary at or past c n / blocks beads, leaving every block a layer at least
+            while layer < layers and offsets[per_layer * layer] * blocks < c * n:
+                layer += 1
+            layer = min(layer, layers - (blocks - c))
+            block_start[c] = offsets[per_layer * layer]
+            layer += 1
     block_start[0] = 0
     block_start[blocks] = n
     return blocks

@@ -96,6 +96,20 @@ def test_bond_groups_with_cross_links_equal_numpy_reference():
         np.testing.assert_allclose(e_k, e_r, rtol=1e-10, atol=1e-10 * np.abs(e_r).max())
 
 
+def test_chains_far_apart_in_open_box_equal_numpy_reference():
+    """Open-box lists index z layers over the beads' extent; chains 1,000 sigma apart in z (more layers
+    than twice the beads) fall back to hashing all three coordinates. Same forces as the NumPy twin."""
+    pair = bs.build_chains([30, 30], density=0.1, seed=9, min_distance=0.85)
+    pos = pair.positions - pair.positions.mean(axis=0)
+    pos[30:, 2] += 1000.0
+    system = bs.System(pos, [30, 30])
+    ff = bs.ForceField(bs.LennardJones(cutoff=2.5), bs.FENE())
+    f_k, e_k = _kernel(system, ff)
+    f_r, e_r = reference_forces(system, ff)
+    assert np.abs(f_k - f_r).max() <= 1e-10 * np.abs(f_r).max()
+    np.testing.assert_allclose(e_k, e_r, rtol=1e-10, atol=1e-10 * np.abs(e_r).max())
+
+
 def test_total_force_vanishes_on_isolated_system(systems):
     """Newton's third law: the net force on a closed system is zero (exact)."""
     for name, system, ff in systems:

@@ -37,3 +37,26 @@ def test_one_and_two_threads_end_in_the_same_state():
     assert one[3] == two[3] > 0  # the same list rebuilds happened
     for a, b in zip(one[:3], two[:3]):
         assert np.array_equal(a, b)
+
+
+def _open_chain_state(threads, n_beads):
+    previous = set_threads(threads)
+    try:
+        system = bs.build_chains(n_beads, seed=6)
+        sim = bs.Simulation(system, bs.ForceField(bs.LennardJones(cutoff=2.5), bs.FENE()),
+                            bs.BAOABLangevin(0.005, temperature=1.5), seed=6)
+        sim.advance(300)
+        return (sim.system.positions.copy(), sim.system.velocities.copy(), sim.raw_energies.copy(), sim.rebuilds,
+                int(sim.neighbors.arrays[9][0]))
+    finally:
+        set_threads(previous)
+
+
+def test_open_box_chain_same_state_on_one_and_two_threads():
+    """An open-box chain's list has z-layer blocks too; the state must not depend on the thread count."""
+    n_beads = max(PARALLEL_MIN_BEADS, 2000)
+    one, two = _open_chain_state(1, n_beads), _open_chain_state(2, n_beads)
+    assert one[4] == two[4] >= 4  # several force-loop blocks were in use
+    assert one[3] == two[3] > 0
+    for a, b in zip(one[:3], two[:3]):
+        assert np.array_equal(a, b)
