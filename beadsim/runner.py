@@ -104,7 +104,9 @@ def build_simulation(settings):
     if sm["method"] == "hybrid":
         HybridSampler(sim, segment_steps=sm["segment_steps"], pivot_moves=sm["pivot_moves_per_segment"],
                       crankshaft_moves=sm["crankshaft_moves_per_segment"],
-                      crankshaft_max_angle=sm["crankshaft_max_angle"])
+                      crankshaft_max_angle=sm["crankshaft_max_angle"],
+                      accepted_pivots=sm["accepted_pivots_per_segment"],
+                      tune_until=settings["run"]["equilibration_steps"])
         log.warning("%s", DYNAMICS_CAUTION)
     return sim
 

@@ -10,6 +10,18 @@ distribution of positions and velocities invariant; velocities are independent
 of positions in that distribution, so they are kept as they are across a move.
 After the moves the Verlet list is rebuilt and the forces recomputed.
 
+Tuned pivot count: with ``accepted_pivots`` set, the pivot moves per round are
+chosen once, at the first round at or after step ``tune_until`` (the end of
+equilibration), as ``ceil(accepted_pivots / a)`` clipped to
+[:data:`MIN_TUNED_PIVOTS`, :data:`MAX_TUNED_PIVOTS`], with ``a`` the pivot
+acceptance measured over the rounds after ``tune_until / 2``. Rounds after that
+use the fixed count, so production is an ordinary Markov chain with a
+Boltzmann-invariant kernel; the adaptation touches equilibration only. The
+rule "a fixed number of accepted pivots per round" comes from measurement
+(analysis/statics_efficiency.md): at N = 256 the best mix near theta (acceptance
+17 %) and in the globule (2-3 %) both accepted about three pivots per round of
+20 Langevin steps, although the pivot counts differ fivefold.
+
 The moves teleport parts of a chain: time correlations, diffusion and
 relaxation times measured from a hybrid run mean nothing. Only static
 (equilibrium) averages are valid.
@@ -31,6 +43,13 @@ log = logging.getLogger(__name__)
 _MOVE_STREAM = 0x3C6EF372  # distinct from the thermostat's and the builders' streams
 
 MOVE_KINDS = {"pivot": KP.PIVOT, "crankshaft": KP.CRANKSHAFT}
+
+MIN_TUNED_PIVOTS = 5
+"""Fewest pivot moves per round a tuned count may take (our choice: keeps chain-scale moves in every round)."""
+
+MAX_TUNED_PIVOTS = 500
+"""Most pivot moves per round a tuned count may take (our choice: bounds the cost of a round when almost
+every pivot is rejected, as in cold globules, where the Langevin steps do the sampling)."""
 
 DYNAMICS_CAUTION = ("hybrid sampling moves chains by Monte Carlo jumps between Langevin segments: "
                     "static averages (Rg, Re, shape, scattering, energies) are valid, but dynamics-derived "
@@ -62,6 +81,11 @@ class HybridSampler:
         Moves of each kind per round (>= 0, not both 0).
     crankshaft_max_angle : float
         Largest crankshaft rotation, degrees (0 < angle <= 180).
+    accepted_pivots : float, optional
+        Tune the pivot moves per round so that about this many are accepted per round
+        (module notes); ``pivot_moves`` is then the count used until the tuning.
+    tune_until : int
+        Step at or after which the pivot count is tuned (the end of equilibration).
     attach : bool
         Make ``sim.advance`` (hence ``sim.run`` and :func:`~beadsim.engine.loop.iterate`)
         interleave the moves, and checkpoints carry the sampler's state.
@@ -73,6 +97,8 @@ class HybridSampler:
         so the run's random state is (seed, step count, move_count).
     counts : dict of str -> int64 (2,)
         Attempted and accepted moves of each kind.
+    tuning : int64 (3,)
+        Pivots attempted and accepted in the tuning window, and 1 once the count is tuned.
 
     Examples
     --------
@@ -86,7 +112,7 @@ class HybridSampler:
     """
 
     def __init__(self, sim, segment_steps=1000, pivot_moves=100, crankshaft_moves=0, crankshaft_max_angle=180.0,
-                 attach=True):
+                 accepted_pivots=None, tune_until=0, attach=True):
         system = sim.system
         if system.box.periodic:
             raise InputError("hybrid sampling: pivot and crankshaft moves are implemented for open boxes only "
@@ -101,6 +127,11 @@ class HybridSampler:
         if not any(self.moves.values()):
             raise InputError("hybrid sampling: pivot_moves and crankshaft_moves are both 0; ask for moves of at "
                              "least one kind, or use method = 'dynamics'")
+        self.accepted_pivots = None if accepted_pivots is None else positive(accepted_pivots, "accepted_pivots")
+        self.tune_until = positive_int(tune_until, "tune_until", allow_zero=True)
+        if self.accepted_pivots is not None and self.moves["pivot"] == 0:
+            raise InputError("hybrid sampling: accepted_pivots tunes the pivot count, so pivot_moves must be > 0 "
+                             "(the count used before the tuning)")
         angle = positive(crankshaft_max_angle, "crankshaft_max_angle")
         if angle > 180.0:
             raise InputError(f"crankshaft_max_angle: must lie in (0, 180] degrees, got {crankshaft_max_angle!r}")
@@ -128,6 +159,7 @@ class HybridSampler:
         self.seed = stream_seed(sim.seed, _MOVE_STREAM)
         self.move_count = 0
         self.counts = {kind: np.zeros(2, dtype=np.int64) for kind in MOVE_KINDS}
+        self.tuning = np.zeros(3, dtype=np.int64)
         if attach:
             sim.hybrid = self
 
@@ -148,6 +180,7 @@ class HybridSampler:
                   else positive_int(pivot_moves, "pivot_moves", allow_zero=True),
                   "crankshaft": self.moves["crankshaft"] if crankshaft_moves is None
                   else positive_int(crankshaft_moves, "crankshaft_moves", allow_zero=True)}
+        before = self.counts["pivot"].copy()
         pos = sim.system.positions
         if self.width > 0:
             KP.build_cells(pos, self.width, self.head, self.nxt, self.prv, self.bucket)
@@ -160,9 +193,25 @@ class HybridSampler:
                                 self.candidates, self.chain_lo, self.chain_hi, self.width, self.head, self.nxt,
                                 self.prv, self.bucket, self.trial, self.counts[kind])
             self.move_count += n_moves
+        if self.accepted_pivots is not None and not self.tuning[2]:
+            self._tune(before)
         if refresh:
             with threads_for(sim.system.n_beads):
                 sim.refresh_neighbors()
+
+    def _tune(self, before):
+        """Count this round's pivots in the tuning window; fix the pivot count once ``tune_until`` is reached."""
+        step = self.sim.step_count
+        if 2 * step > self.tune_until:
+            self.tuning[:2] += self.counts["pivot"] - before
+        if step < self.tune_until:
+            return
+        tried, took = self.tuning[:2]
+        wanted = MAX_TUNED_PIVOTS if took == 0 else math.ceil(self.accepted_pivots * tried / took)
+        self.moves["pivot"] = int(min(MAX_TUNED_PIVOTS, max(MIN_TUNED_PIVOTS, wanted)))
+        self.tuning[2] = 1
+        log.info("hybrid sampling: pivot acceptance %.3g over the tuning window; %d pivot moves per round from "
+                 "step %d", took / tried if tried else float("nan"), self.moves["pivot"], step)
 
     def advance(self, n_steps):
         """Take ``n_steps`` integrator steps, with a round of moves whenever the step count reaches a
@@ -188,12 +237,15 @@ class HybridSampler:
             if self.moves[kind] or tried:
                 out[kind] = {"attempted": int(tried), "accepted": int(took),
                              "rate": float(took) / float(tried) if tried else None}
+        if self.accepted_pivots is not None and "pivot" in out:
+            out["pivot"]["tuned_moves_per_segment"] = int(self.moves["pivot"]) if self.tuning[2] else None
         return out
 
     def state_arrays(self):
         """The sampler's part of a checkpoint (plain arrays)."""
         return {"hybrid_move_count": np.array(self.move_count, dtype=np.int64),
-                "hybrid_counts": np.array([self.counts[k] for k in MOVE_KINDS], dtype=np.int64)}
+                "hybrid_counts": np.array([self.counts[k] for k in MOVE_KINDS], dtype=np.int64),
+                "hybrid_tuning": np.append(self.tuning, self.moves["pivot"]).astype(np.int64)}
 
     def restore(self, arrays):
         """Restore :meth:`state_arrays` (a checkpoint without them starts the move count at 0)."""
@@ -203,3 +255,7 @@ class HybridSampler:
         counts = np.asarray(arrays["hybrid_counts"], dtype=np.int64).reshape(len(MOVE_KINDS), 2)
         for k, kind in enumerate(MOVE_KINDS):
             self.counts[kind][:] = counts[k]
+        if "hybrid_tuning" in arrays:
+            tuning = np.asarray(arrays["hybrid_tuning"], dtype=np.int64)
+            self.tuning[:] = tuning[:3]
+            self.moves["pivot"] = int(tuning[3])

@@ -172,6 +172,65 @@ def test_hybrid_run_resumes_bit_for_bit():
     assert s2.acceptance() == s.acceptance() and s2.move_count == s.move_count == 15 * 40
 
 
+def test_tuned_pivot_count_follows_the_acceptance_of_the_second_half_of_equilibration():
+    """With accepted_pivots = 3 and tune_until = 1,000 steps (rounds of 20 steps), the pivot count from
+    step 1,000 on is ceil(3 / a), a the pivot acceptance of the rounds after step 500, clipped to
+    [MIN_TUNED_PIVOTS, MAX_TUNED_PIVOTS]. Until the tuning the tuned sampler draws the same moves as a
+    fixed-count one, so a is read from the fixed-count sampler's own counters at steps 500 and 1,000."""
+    from beadsim.engine.hybrid import MAX_TUNED_PIVOTS, MIN_TUNED_PIVOTS
+    system = bs.build_chains(48, seed=6)
+    ff = bs.ForceField(bs.LennardJones(cutoff=2.5), bs.FENE())
+    sim, fixed = _sampler(system, ff, kT=1.5, segment_steps=20, pivot_moves=10)
+    sim.minimize()
+    start = sim.system.copy()
+    sim.run(500)
+    at_half = fixed.counts["pivot"].copy()
+    sim.run(500)
+    tried, took = fixed.counts["pivot"] - at_half
+    expected = min(MAX_TUNED_PIVOTS, max(MIN_TUNED_PIVOTS, math.ceil(3 * tried / took)))
+    sim2, tuned = _sampler(start, ff, kT=1.5, segment_steps=20, pivot_moves=10, accepted_pivots=3.0,
+                           tune_until=1_000)
+    sim2.run(980)
+    assert tuned.moves["pivot"] == 10 and tuned.acceptance()["pivot"]["tuned_moves_per_segment"] is None
+    sim2.run(20)
+    np.testing.assert_array_equal(sim2.system.positions, sim.system.positions)
+    assert tuned.moves["pivot"] == expected != 10
+    assert tuned.acceptance()["pivot"]["tuned_moves_per_segment"] == expected
+
+
+def test_phantom_chain_tunes_to_the_fewest_pivots():
+    """A chain without pair forces accepts every pivot (a = 1), so ceil(3 / a) = 3 is raised to
+    MIN_TUNED_PIVOTS."""
+    from beadsim.engine.hybrid import MIN_TUNED_PIVOTS
+    system = bs.build_chains(16, seed=4, bond_length=0.5, min_distance=0.3)
+    sim, s = _sampler(system, bs.ForceField(bs.NoPair(), bs.HarmonicBond(10.0, 0.0)), segment_steps=10,
+                      pivot_moves=40, accepted_pivots=3.0, tune_until=200)
+    sim.run(300)
+    assert s.moves["pivot"] == MIN_TUNED_PIVOTS
+
+
+def test_tuned_hybrid_run_resumes_bit_for_bit_across_the_tuning():
+    """A checkpoint taken before the pivot count is tuned, restored into a fresh sampler, continues past
+    the tuning exactly as the uninterrupted run, and one taken after it keeps the tuned count."""
+    system = bs.build_chains(32, seed=6)
+    ff = bs.ForceField(bs.LennardJones(cutoff=2.5), bs.FENE())
+    kwargs = dict(kT=2.0, segment_steps=50, pivot_moves=20, accepted_pivots=2.0, tune_until=1_000)
+    sim, s = _sampler(system, ff, **kwargs)
+    sim.minimize()
+    fresh = sim.system.copy()
+    sim.run(700)
+    before = sim.state_arrays()
+    sim.run(800)
+    after = sim.state_arrays()
+    sim.run(500)
+    for saved, steps in ((before, 1_300), (after, 500)):
+        sim2, s2 = _sampler(fresh, ff, **kwargs)
+        sim2.restore(saved)
+        sim2.run(steps)
+        np.testing.assert_array_equal(sim2.system.positions, sim.system.positions)
+        assert s2.moves["pivot"] == s.moves["pivot"] and s2.acceptance() == s.acceptance()
+
+
 def test_moves_keep_velocities_and_refresh_forces():
     system = bs.build_chains(24, seed=8)
     sim, s = _sampler(system, bs.ForceField(bs.WCA(), bs.FENE()), segment_steps=10, pivot_moves=50)
@@ -192,6 +251,9 @@ def test_moves_keep_velocities_and_refresh_forces():
     (lambda: bs.build_chains(16, seed=1), bs.BAOABLangevin(0.005), {"crankshaft_max_angle": 200.0}, "(0, 180]"),
     (lambda: bs.build_chains(16, seed=1), bs.BAOABLangevin(0.005), {"segment_steps": 0}, "segment_steps"),
     (lambda: bs.build_chains([2, 2], seed=1), bs.BAOABLangevin(0.005), {}, "interior bead"),
+    (lambda: bs.build_chains(16, seed=1), bs.BAOABLangevin(0.005), {"pivot_moves": 0, "crankshaft_moves": 5,
+                                                                     "accepted_pivots": 2.0}, "pivot_moves must be"),
+    (lambda: bs.build_chains(16, seed=1), bs.BAOABLangevin(0.005), {"accepted_pivots": -1.0}, "accepted_pivots"),
 ])
 def test_bad_hybrid_settings_are_refused(build, integrator, kwargs, message):
     sim = bs.Simulation(build(), bs.ForceField(bs.WCA(), bs.FENE()), integrator, seed=1)
