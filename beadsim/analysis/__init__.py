@@ -1,4 +1,4 @@
-"""Analysis of bead-spring trajectories: sizes, shapes, scattering, bonds, dynamics, statistics, scaling.
+"""Analysis of bead-spring trajectories: sizes, shapes, scattering, bonds, dynamics, statistics, scaling, B2.
 
 Two levels of functions:
 
@@ -32,13 +32,15 @@ from .size import (Shape, compute_end_to_end, compute_hydrodynamic_radius, compu
 from .stats import (Blocking, Summary, blocking, detect_equilibration, effective_sample_count,
                     statistical_inefficiency, summarize)
 from .trajectory import find_chains, is_periodic, load_trajectory, trajectory_positions, unwrap_chains
+from .virial import SecondVirial, compute_second_virial
 
 __all__ = [
     "Blocking", "DiffusionFit", "ExponentFit", "GuinierFit", "PersistenceFit", "PowerLawFit", "RelaxationTime",
-    "Shape", "StructureFactor", "Summary", "analyze_file", "blocking", "bond_angles", "bond_correlation",
-    "bond_lengths", "center_of_mass_msd", "center_of_mass_paths", "compute_bond_angles", "compute_bond_lengths",
-    "compute_end_to_end", "compute_end_to_end_autocorrelation", "compute_form_factor",
-    "compute_hydrodynamic_radius", "compute_internal_distances", "compute_msd", "compute_rg", "compute_shape",
+    "SecondVirial", "Shape", "StructureFactor", "Summary", "analyze_file", "blocking", "bond_angles",
+    "bond_correlation", "bond_lengths", "center_of_mass_msd", "center_of_mass_paths", "compute_bond_angles",
+    "compute_bond_lengths", "compute_end_to_end", "compute_end_to_end_autocorrelation", "compute_form_factor",
+    "compute_hydrodynamic_radius", "compute_internal_distances", "compute_msd", "compute_rg",
+    "compute_second_virial", "compute_shape",
     "compute_structure_factor", "debye_function", "detect_equilibration", "diffusion_coefficient",
     "distribution", "effective_exponent", "effective_sample_count", "end_to_end_distance", "end_to_end_vector",
     "find_chains", "fit_power_law", "form_factor", "format_table", "guinier_rg", "gyration_tensor",

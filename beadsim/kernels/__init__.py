@@ -13,7 +13,7 @@ compares a stamp in the cache folder with a hash of every kernel source and the
 numba version, and removes the kernels' cache files when they differ.
 """
 
-from . import chunks, forces, growth, integrate, neighbors, pivot, random, scattering
+from . import chunks, forces, growth, integrate, neighbors, pivot, random, scattering, virial
 from .cache_guard import guard_kernel_cache
 
-guard_kernel_cache((chunks, forces, growth, integrate, neighbors, pivot, random, scattering))
+guard_kernel_cache((chunks, forces, growth, integrate, neighbors, pivot, random, scattering, virial))
