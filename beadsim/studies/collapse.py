@@ -12,7 +12,10 @@ per control value); a case that lacks data gives ``value=None`` with a note.
   temperature and -1 for attraction depth (the coil is on the good-solvent side). Fitted by
   weighted least squares (``scipy.optimize.curve_fit``, errors absolute) to
   ``Rg = sqrt(<Rg^2>)`` with error ``rg2_error / (2 Rg)``. The midpoint c_m and the scale w
-  describe the crossover; the 10-90 % width is ``2 ln 9 w ≈ 4.39 w``. Above the transition Rg
+  describe the crossover; the 10-90 % width is ``2 ln 9 w ≈ 4.39 w``. The midpoint is reported only
+  when the sampled range reaches one width w past it on both sides and its error is below the
+  range; otherwise it reads "not determined" with the reason (a logistic fitted to one side of
+  a crossover places its midpoint anywhere). Above the transition Rg
   keeps growing slowly, so the plateaus are effective values, not the swollen-coil limit.
 * Heat-capacity peak (:func:`heat_capacity_peaks`): weighted parabola
   ``C = a u^2 + b u + c0`` (u = control minus the control of the largest C) through the
@@ -124,7 +127,20 @@ def transition_sigmoids(df, control_kind):
         e = np.sqrt(np.diag(cov))
         fit_notes = list(notes)
         if not c.min() <= p[0] <= c.max():
-            fit_notes.append("midpoint outside the control range: extrapolated")
+            out.append(Estimate(method, None, None, _describe(group), tuple(fit_notes + [
+                f"not determined: the fitted midpoint ({p[0]:.3g}) lies outside the sampled range "
+                f"[{c.min():g}, {c.max():g}]; extend the control values past the collapse"])))
+            continue
+        if not (c.min() <= p[0] - p[1] and p[0] + p[1] <= c.max()):
+            out.append(Estimate(method, None, None, _describe(group), tuple(fit_notes + [
+                f"not determined: the sampled range [{c.min():g}, {c.max():g}] does not reach one logistic width "
+                f"({p[1]:.2g}) past the fitted midpoint ({p[0]:.3g}) on both sides, so neither plateau is pinned "
+                "down"])))
+            continue
+        if not np.isfinite(e[0]) or e[0] > span:
+            out.append(Estimate(method, None, None, _describe(group), tuple(fit_notes + [
+                f"not determined: the midpoint's error ({e[0]:.2g}) exceeds the sampled range"])))
+            continue
         if chi2 > 2.0:
             fit_notes.append(f"chi2/dof = {chi2:.2f}: the logistic form misses the data")
         out.append(Estimate(method, float(p[0]), float(e[0]), _describe(group), tuple(fit_notes),
@@ -278,6 +294,11 @@ def globule_extrapolation(df, control_kind, n_controls=1):
         coef = fit_cov @ design.T @ weight @ local
         residual = local - design @ coef
         nu_inf, nu_err = float(coef[0]), float(np.sqrt(fit_cov[0, 0]))
+        if not 0.0 <= nu_inf <= 1.0:
+            out.append(Estimate(method, None, None, described, tuple(notes + [
+                f"not determined: the extrapolation gives {nu_inf:.3g} +- {nu_err:.2g}, outside [0, 1]; these "
+                "chains are not compact globules at this control value"])))
+            continue
         fit_notes = list(notes) + [f"nu_inf - 1/3 = {(nu_inf - 1.0 / 3.0) / nu_err:+.1f} standard errors, "
                                    f"1/2 - nu_inf = {(0.5 - nu_inf) / nu_err:+.1f}"]
         chi2 = float(residual @ weight @ residual)

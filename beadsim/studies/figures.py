@@ -276,6 +276,48 @@ def sigmoid_figure(df, control_kind, fits, path, mbar=None):
     return _save(fig, path)
 
 
+def extrapolation_figure(extrapolations, combined, control_kind, path):
+    """Finite-N theta estimates against N^(-x) with each estimator's fitted line to N -> infinity.
+
+    Parameters
+    ----------
+    extrapolations : sequence of beadsim.studies.extrapolation.Extrapolation
+        One per estimator; those without points are skipped, those without a fit show their points only.
+    combined : beadsim.studies.extrapolation.CombinedEstimate or None
+        The quoted value, drawn at N^(-x) = 0 with its total error; skipped when it has no value.
+    control_kind : {"temperature", "depth"}
+    path : str or os.PathLike
+        Output (module notes).
+
+    Returns
+    -------
+    list of str
+    """
+    fig, ax = _axes()
+    x_max = 0.0
+    for k, e in enumerate(extrapolations):
+        if not e.values_used:
+            continue
+        x = np.asarray(e.n_used, dtype=np.float64) ** (-e.exponent)
+        x_max = max(x_max, float(x.max()))
+        ax.errorbar(x, e.values_used, e.errors_used, color=f"C{k}", marker="o", ms=3, lw=0, elinewidth=1,
+                    capsize=2, label=e.method)
+        if e.value is not None:
+            grid = np.linspace(0.0, x.max(), 50)
+            with np.errstate(divide="ignore"):
+                fit, _ = e.curve(grid[1:] ** (-1.0 / e.exponent))
+            ax.plot(grid, np.concatenate([[e.value], fit]), color=f"C{k}", lw=1)
+    if combined is not None and combined.value is not None:
+        ax.errorbar([0.0], [combined.value], [combined.total_error], color="k", marker="s", ms=5, capsize=3,
+                    label="quoted (N -> infinity)")
+    exponent = next((e.exponent for e in extrapolations), 0.5)
+    ax.set_xlim(-0.02 * max(x_max, 0.1), 1.05 * max(x_max, 0.1))
+    ax.set_xlabel(f"N^(-{exponent:g})  (pairs at their effective length)")
+    ax.set_ylabel(f"finite-N theta estimate, {_control_label(control_kind)}")
+    ax.legend(frameon=False, fontsize="x-small")
+    return _save(fig, path)
+
+
 KRATKY_Q_MAX = 3.0
 """Largest q drawn in the Kratky figure, 1/sigma: beyond it the curves show single beads, not the chain."""
 

@@ -21,8 +21,10 @@ import tables
 
 from ..config import (AT_LEAST_ONE, POSITIVE, REQUIRED, check_only_section, check_section, choice, load_toml,
                       read_settings)
+from ..engine.integrators import INTEGRATORS
 from ..errors import CheckpointError, InputError
 from . import sweep_mbar
+from .theta import Estimate
 
 log = logging.getLogger(__name__)
 
@@ -78,6 +80,7 @@ def read_study(path):
     study["base"] = str(base_path)
     base = read_settings(base_path)
     _check_control(base, study["control"], src)
+    study["sampling"] = choose_sampler(base, "method" in load_toml(base_path).get("sampling", {}))
     if study["target_relative_error"] is not None and study["max_production_steps"] is None:
         raise InputError(f"{src}: [study] max_production_steps: required with target_relative_error (a cap on "
                          "how long to sample)")
@@ -100,6 +103,47 @@ def _control_values(study, src):
         raise InputError(f"{src}: [study] values: the parameter range is empty or holds values that are not "
                          f"numbers > 0: {values!r}")
     return sorted({float(v) for v in values})
+
+
+#: Hybrid settings a study gives an isolated-chain model whose base input names no sampling method:
+#: rounds of 20 Langevin steps, each followed by pivots whose count is tuned at the end of equilibration
+#: so that about 3 are accepted per round (20 until then). Measured in analysis/statics_efficiency.md:
+#: at N = 256 this mix is the fastest of those tried both near theta and in the globule.
+STUDY_HYBRID = {"method": "hybrid", "segment_steps": 20, "pivot_moves_per_segment": 20,
+                "accepted_pivots_per_segment": 3.0, "crankshaft_moves_per_segment": 0}
+
+
+def choose_sampler(base, explicit):
+    """How a study samples its points: the base input's own choice, hybrid moves, or dynamics.
+
+    Parameters
+    ----------
+    base : dict
+        Resolved base settings.
+    explicit : bool
+        True if the base input file names ``[sampling] method`` itself.
+
+    Returns
+    -------
+    dict
+        ``settings``: the ``[sampling]`` section every point uses; ``note``: one line for the
+        console and the summary saying which sampler and why.
+    """
+    sampling = dict(base["sampling"])
+    if explicit:
+        return {"settings": sampling, "note": f"{sampling['method']} (set in the base input)"}
+    if base["box"]["kind"] != "open":
+        return {"settings": sampling,
+                "note": "dynamics: the base model is a periodic box, where pivot moves do not apply; plain "
+                        "Langevin dynamics samples every point"}
+    if not INTEGRATORS[base["dynamics"]["integrator"]].thermostatted:
+        return {"settings": sampling,
+                "note": f"dynamics: the base integrator '{base['dynamics']['integrator']}' has no temperature "
+                        "for the Metropolis rule of pivot moves"}
+    sampling.update(STUDY_HYBRID)
+    return {"settings": sampling,
+            "note": "hybrid (the base input names no [sampling] method, so each isolated chain is sampled by "
+                    "Langevin segments of 20 steps and pivot moves, about 3 accepted per segment; statics only)"}
 
 
 def _check_control(base, control, src):
@@ -142,6 +186,8 @@ def point_settings(base, study, point):
     s["chains"].update(count=1, length=[point["n_beads"]])
     s["run"]["seed"] = point["seed"]
     s["solvent"] = {key: None for key in s["solvent"]}  # the control value replaces any preset
+    if point["n_beads"] >= 3:  # pivot moves need an interior bead; dimers keep the base input's sampling
+        s["sampling"] = dict(study["sampling"]["settings"])
     if study["control"] == "temperature":
         s["dynamics"]["temperature"] = point["control"]
     else:
@@ -242,8 +288,25 @@ def analyze_point(folder, settings):
     fluct = summarize((energy - energy.mean()) ** 2, detect=False)
     out["heat_capacity"] = float(fluct.mean / (n * kT ** 2))
     out["heat_capacity_error"] = (float(fluct.error / (n * kT ** 2)) if fluct.error is not None else float("nan"))
+    out.update(_sampler_record(folder, settings))
     out.update(_frame_analysis(folder, settings))
     out["note"] = "; ".join(notes)
+    return out
+
+
+def _sampler_record(folder, settings):
+    """Which sampler ran the point, with the pivot acceptance and the pivot count of production (hybrid)."""
+    from ..runner import SUMMARY_FILE as RUN_SUMMARY
+
+    out = {"sampler": settings["sampling"]["method"], "pivot_acceptance": float("nan"),
+           "pivot_moves_per_segment": float("nan")}
+    if out["sampler"] != "hybrid" or not (folder / RUN_SUMMARY).exists():
+        return out
+    pivot = json.loads((folder / RUN_SUMMARY).read_text()).get("sampling", {}).get("acceptance", {}).get("pivot", {})
+    if pivot.get("rate") is not None:
+        out["pivot_acceptance"] = float(pivot["rate"])
+    out["pivot_moves_per_segment"] = float(pivot.get("tuned_moves_per_segment")
+                                           or settings["sampling"]["pivot_moves_per_segment"])
     return out
 
 
@@ -260,9 +323,17 @@ FORM_FACTOR_Q = np.geomspace(0.02, 8.0, 56)
 #: Saved frames (evenly spaced) used for the per-point form factor.
 FORM_FACTOR_FRAMES = 100
 
+#: Most saved frames (evenly spaced) paired for the second virial coefficient of two chains.
+VIRIAL_FRAMES = 400
+
 
 def _frame_analysis(folder, settings):
     """Quantities from the saved frames of one point: nu from internal distances, and P(q).
+
+    The second virial coefficient B2 of two chains of the point (sigma^3) and the
+    interpenetration ratio Psi* come from up to :data:`VIRIAL_FRAMES` frames paired at
+    random orientations (:func:`beadsim.analysis.virial.compute_second_virial`, seeded by
+    the point's seed); NaN with fewer than 4 frames.
 
     nu comes from <R^2(s)> over 3 <= s <= N/2. The frames are cut into
     :data:`INTERNAL_BLOCKS` consecutive blocks and nu is fitted to each block's mean
@@ -285,13 +356,15 @@ def _frame_analysis(folder, settings):
 
     n = settings["chains"]["length"][0]
     path = folder / settings["output"]["trajectory"]
-    out = {"nu_internal": float("nan"), "nu_internal_error": float("nan")}
+    out = {"nu_internal": float("nan"), "nu_internal_error": float("nan"), "b2": float("nan"),
+           "b2_error": float("nan"), "psi_star": float("nan"), "psi_star_error": float("nan")}
     if not path.exists():
         return out
     traj = mdtraj.load(str(path))
     if traj.n_frames == 0:
         return out
     pos = traj.xyz.astype(np.float64) / settings["output"]["length_scale_nm"]
+    out.update(_virial(pos, settings))
     chain = [np.arange(n)]
     picks = np.unique(np.linspace(0, traj.n_frames - 1, min(FORM_FACTOR_FRAMES, traj.n_frames)).astype(int))
     pd.DataFrame({"q": FORM_FACTOR_Q, "p": form_factor(pos[picks], chain, FORM_FACTOR_Q)}).to_csv(
@@ -305,8 +378,24 @@ def _frame_analysis(folder, settings):
         return nu_from_internal_distances(s[1:], frames.mean(axis=0)[1:], s_range=(3, n / 2)).nu
 
     blocks = [fit(b) for b in np.array_split(r2, INTERNAL_BLOCKS)]
-    return {"nu_internal": float(fit(r2)),
-            "nu_internal_error": float(np.std(blocks, ddof=1) / np.sqrt(INTERNAL_BLOCKS))}
+    out.update(nu_internal=float(fit(r2)), nu_internal_error=float(np.std(blocks, ddof=1) / np.sqrt(INTERNAL_BLOCKS)))
+    return out
+
+
+def _virial(pos, settings):
+    """B2 and Psi* of two chains from the point's frames (see :func:`_frame_analysis`)."""
+    from ..analysis.virial import compute_second_virial
+    from ..runner import build_forcefield
+
+    if pos.shape[0] < 4:
+        return {}
+    picks = np.unique(np.linspace(0, pos.shape[0] - 1, min(VIRIAL_FRAMES, pos.shape[0])).astype(int))
+    v = compute_second_virial(pos[picks], np.zeros(pos.shape[1], dtype=np.int64), build_forcefield(settings),
+                              settings["dynamics"]["temperature"], seed=settings["run"]["seed"] % 2 ** 31)
+    nan = float("nan")
+    return {"b2": v.b2, "b2_error": v.b2_error,
+            "psi_star": nan if v.psi_star is None else v.psi_star,
+            "psi_star_error": nan if v.psi_star_error is None else v.psi_star_error}
 
 
 def results_frame(store):
@@ -491,20 +580,21 @@ def finalize(store, study, out):
         summary["results_parquet"] = f"not written ({exc})"
     summary.update(estimate_everything(frame, study["control"], Path(out) / FIGURES_DIR, seed=study["seed"],
                                        curves_csv=Path(out) / sweep_mbar.CURVES_CSV))
-    return summary
+    return {"verdict": summary.pop("verdict"), **summary}
 
 
-#: The estimator whose value is quoted as "the" theta estimate when it has one, in order of preference:
-#: the crossing of size-per-bond curves uses every chain length without a model assumption.
-PRIMARY_ESTIMATORS = ("crossing", "nu_eff", "<Re^2>/<Rg^2>")
+#: Finite-N estimators extrapolated to N -> infinity (each gives a value per chain length or per pair).
+EXTRAPOLATED = ("crossing of", "nu_eff(internal)", "<Re^2>/<Rg^2>", "B2 = 0")
 
 
 def estimate_everything(frame, control_kind, figures, seed=0, curves_csv=None):
-    """Theta estimators side by side, the coil-globule transition, and the study figures.
+    """Theta estimators side by side, their N -> infinity extrapolation, the transition, and the figures.
 
-    In temperature sweeps the points of each chain length are also combined by MBAR
-    (:mod:`beadsim.studies.sweep_mbar`): smooth curves drawn in the transition figure and in one
-    figure per N (``mbar_n<N>``), and the heat-capacity maximum reported beside the Rg midpoint.
+    Each finite-N estimator in :data:`EXTRAPOLATED` is fitted against ``N^(-1/2)``
+    (:func:`beadsim.studies.extrapolation.extrapolate_estimate`); the quoted theta combines the
+    extrapolated values (:func:`beadsim.studies.extrapolation.combine`, statistical error bounded
+    for estimators from the same runs, systematic error from their spread). In temperature sweeps
+    the points of each chain length are also combined by MBAR (:mod:`beadsim.studies.sweep_mbar`).
 
     Parameters
     ----------
@@ -521,44 +611,52 @@ def estimate_everything(frame, control_kind, figures, seed=0, curves_csv=None):
     Returns
     -------
     dict
-        ``theta`` (list of estimate dicts), ``theta_combined``, ``collapse`` (lines of text),
-        ``collapse_fits`` (list of estimate dicts), ``regime_figures`` (notes on the Kratky
-        and snapshot figures), ``mbar`` (per chain length: overlap and samples; the curves file
-        or a note) and ``figures``.
+        ``verdict`` (:func:`verdict`), ``theta`` (finite-N estimate dicts), ``theta_extrapolated``
+        (extrapolation dicts), ``theta_combined`` (the quoted value, when there is one),
+        ``collapse`` (lines of text), ``collapse_fits`` (estimate dicts), ``regime_figures``,
+        ``mbar`` and ``figures``.
     """
     from . import collapse, figures as fig
     from .exponents import size_exponents
+    from .extrapolation import combine, extrapolate_estimate
     from .theta import summarize_theta
 
     figures = Path(figures)
     figures.mkdir(parents=True, exist_ok=True)
     estimates = summarize_theta(frame, control_kind, seed=seed)
-    found = [e for e in estimates if e.value is not None and e.error is not None]
-    out = {"theta": [e.as_dict() for e in estimates], "figures": str(figures), "collapse": [], "collapse_fits": []}
-    primary = next((e for key in PRIMARY_ESTIMATORS for e in found if e.method.startswith(key)), None)
-    if primary is not None:
-        values = [e.value for e in found]
-        out["theta_combined"] = {"value": primary.value, "error": primary.error,
-                                 "how": f"{primary.method}; the {len(found)} estimators with a value span "
-                                        f"{min(values):.3g} to {max(values):.3g}"}
+    extrapolations = [extrapolate_estimate(e) for e in estimates if e.method.startswith(EXTRAPOLATED)]
+    combined = combine(extrapolations, same_data=True)
+    out = {"theta": [e.as_dict() for e in estimates], "theta_extrapolated": [x.as_dict() for x in extrapolations],
+           "figures": str(figures), "collapse": [], "collapse_fits": []}
+    if combined.value is not None:
+        out["theta_combined"] = {
+            "value": combined.value, "error": combined.total_error,
+            "statistical_error": combined.statistical_error, "systematic_error": combined.systematic_error,
+            "how": f"N -> infinity extrapolation of {len(combined.estimators)} estimator(s), combined",
+            "agreeing": list(combined.agreeing), "disagreeing": list(combined.disagreeing),
+            "note": "; ".join(combined.notes)}
     crossing = next((e for e in estimates if e.method.startswith("crossing") and "Rg" in e.method), None)
     nu = next((e for e in estimates if e.method.startswith("nu_eff")), None)
     fig.size_crossing_figure(frame, control_kind, figures / "size_crossing", estimate=crossing)
     fig.nu_eff_figure(frame, control_kind, figures / "nu_eff", estimate=nu)
-    if primary is not None:
-        fig.collapse_figure(frame, control_kind, primary.value, figures / "scaling_collapse")
+    fig.extrapolation_figure(extrapolations, combined, control_kind, figures / "theta_extrapolation")
+    quoted = (None if combined.value is None
+              else Estimate("quoted theta (N -> infinity)", combined.value, combined.total_error, ""))
+    if quoted is not None:
+        fig.collapse_figure(frame, control_kind, quoted.value, figures / "scaling_collapse")
     measured = np.isfinite(frame["rg2"]) & np.isfinite(frame["rg2_error"])
     controls = sorted(frame.loc[measured, "control"].unique())
     if controls:
         picks = sorted({controls[0], controls[len(controls) // 2], controls[-1]})
         fig.size_scaling_figure(frame, control_kind, picks, figures / "size_scaling")
     sigmoids = collapse.transition_sigmoids(frame, control_kind)
-    combined = sweep_mbar.sweep_curves(frame, seed=seed) if control_kind == "temperature" else []
+    combined_mbar = sweep_mbar.sweep_curves(frame, seed=seed) if control_kind == "temperature" else []
     fig.sigmoid_figure(frame, control_kind, sigmoids, figures / "transition",
-                       mbar={r.n_beads: r.curves for r in combined if r.curves is not None})
-    out["mbar"] = _mbar_outputs(frame, combined, figures, curves_csv, control_kind)
-    out["regime_figures"] = _regime_figures(frame, control_kind, figures, primary)
-    fits = (size_exponents(frame, control_kind) + sigmoids + [r.peak for r in combined]
+                       mbar={r.n_beads: r.curves for r in combined_mbar if r.curves is not None})
+    out["mbar"] = _mbar_outputs(frame, combined_mbar, figures, curves_csv, control_kind)
+    out["regime_figures"] = _regime_figures(frame, control_kind, figures, quoted)
+    exponents = size_exponents(frame, control_kind)
+    fits = (exponents + sigmoids + [r.peak for r in combined_mbar]
             + collapse.heat_capacity_peaks(frame, control_kind)
             + collapse.globule_scaling(frame, control_kind) + collapse.globule_extrapolation(frame, control_kind))
     for e in fits:
@@ -566,6 +664,80 @@ def estimate_everything(frame, control_kind, figures, seed=0, curves_csv=None):
                                             else f"{e.value:.4g}")
         out["collapse"].append(f"{e.method} ({e.fitted_on}): {text}" + (f"  [{'; '.join(e.notes)}]" if e.notes else ""))
         out["collapse_fits"].append(e.as_dict())
+    out["verdict"] = verdict(frame, control_kind, combined, extrapolations, sigmoids, exponents)
+    return out
+
+
+def _undetermined(reason):
+    return {"value": None, "error": None, "reason": f"not determined: {reason}"}
+
+
+def verdict(frame, control_kind, combined, extrapolations, sigmoids, exponents):
+    """The answer of a study in a few numbers, each with its error or "not determined: <reason>".
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        Tidy results.
+    control_kind : {"temperature", "depth"}
+    combined : beadsim.studies.extrapolation.CombinedEstimate
+        The quoted theta.
+    extrapolations : sequence of beadsim.studies.extrapolation.Extrapolation
+        What it combines.
+    sigmoids : sequence of Estimate
+        Logistic midpoints per N (:func:`beadsim.studies.collapse.transition_sigmoids`).
+    exponents : sequence of Estimate
+        Size exponents per control value (:func:`beadsim.studies.exponents.size_exponents`).
+
+    Returns
+    -------
+    dict
+        ``theta``, ``coil_globule_midpoint`` (longest chain), ``nu_good_side`` (best solvent sampled)
+        and ``nu_poor_side`` (poorest solvent sampled); each ``{"value", "error", ...}`` or with
+        ``value`` None and a ``reason``.
+    """
+    lengths = sorted(int(n) for n in frame.loc[np.isfinite(frame["rg2"]), "n_beads"].unique())
+    out = {}
+    if combined.value is None:
+        reasons = sorted({n for x in extrapolations for n in x.notes})
+        out["theta"] = _undetermined("; ".join(reasons) or "no estimator gave a finite-N value")
+    else:
+        used = [x for x in extrapolations if x.value is not None]
+        out["theta"] = {
+            "value": combined.value, "error": combined.total_error,
+            "statistical_error": combined.statistical_error, "systematic_error": combined.systematic_error,
+            "method": "each estimator's finite-N values fitted to theta + a N^(-1/2) (Grassberger and Hegger "
+                      "1995), the fits combined by inverse-variance weights; error = statistical (bounded for "
+                      "estimators of the same runs) and the spread between estimators, in quadrature",
+            "estimators": [f"{x.method}: {x.value:.4g} +- {x.error:.2g}" + (
+                f" (chi2/dof {x.chi2_per_dof:.2g})" if x.chi2_per_dof is not None else " (2 points: exact line)")
+                for x in used],
+            "agree_within_errors": list(combined.agreeing), "disagree": list(combined.disagreeing),
+            "chain_lengths": lengths}
+    n_max = max(lengths) if lengths else None
+    mid = next((e for e in sigmoids if e.method.endswith(f"N = {n_max}")), None)
+    if mid is None:
+        out["coil_globule_midpoint"] = _undetermined("no chain length with a logistic fit")
+    elif mid.value is None:
+        reason = "; ".join(mid.notes)
+        out["coil_globule_midpoint"] = {"value": None, "error": None, "n_beads": n_max,
+                                        "reason": reason if "not determined:" in reason else f"not determined: {reason}"}
+    else:
+        out["coil_globule_midpoint"] = {"value": mid.value, "error": mid.error, "n_beads": n_max,
+                                        "width_10_90": 2 * np.log(9.0) * mid.details["width"]}
+    plain = [e for e in exponents if e.method.startswith("nu from Rg vs N")]
+    for side, pick in (("nu_good_side", -1), ("nu_poor_side", 0)):
+        if not plain:
+            out[side] = _undetermined("needs two or more chain lengths at one control value")
+            continue
+        ordered = sorted(plain, key=lambda e: e.details["control"])
+        e = ordered[pick] if control_kind == "temperature" else ordered[-1 - pick]
+        if e.value is None or e.error is None or not 0.0 <= e.value <= 1.0:
+            out[side] = _undetermined(f"the fit at control {e.details['control']:g} gives "
+                                      f"{e.value if e.value is None else f'{e.value:.3g}'}, outside [0, 1]")
+        else:
+            out[side] = {"value": e.value, "error": e.error, "control": e.details["control"], "where": e.fitted_on,
+                         "note": "effective exponent over the sampled chain lengths (finite-N value)"}
     return out
 
 

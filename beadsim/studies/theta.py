@@ -33,8 +33,8 @@ Estimators (each returns an :class:`Estimate`; a case that lacks data gives
    error by bootstrap over replicas.
 2. :func:`nu_scaling_theta` and :func:`nu_internal_theta`: where nu_eff passes 1/2.
 3. :func:`ratio_theta`: where ``<Re^2>/<Rg^2>`` passes ``6N/(N+1)``.
-4. :func:`flory_fit_theta`: expansion-factor equation with two- and three-body terms,
-   fitted to all N at once (equation in :func:`flory_alpha`).
+4. :func:`boyle_theta`: where the second virial coefficient B2 of two N-bead chains
+   vanishes (the chain Boyle point), per N.
 5. :func:`collapse_theta`: theta that best collapses ``6N <Rg^2>/(N^2-1)`` versus
    ``tau N^(1/2)`` (quality function of Houdayer and Hartmann, Phys. Rev. B 70,
    014418, 2004; after Kawashima and Ito, J. Phys. Soc. Jpn. 62, 435, 1993) [memory].
@@ -45,12 +45,21 @@ quadratic) to the ``window`` control values nearest the first sign change of the
 gives ``sigma_c^2 = g^T C g / p'(c)^2`` with C the coefficient covariance and g the
 gradient of p(c) with respect to the coefficients.
 
-Bootstrap over replicas: in each (N, control) point the replicas are resampled with
-replacement and the resampled mean is widened by ``sqrt(n/(n-1))`` about the sample
-mean, so its variance is ``s^2/n`` instead of the plain bootstrap's ``s^2 (n-1)/n^2``
-(the small-sample adjustment in Davison and Hinkley, Bootstrap Methods and Their
-Application, 1997, section 2.4 [memory]). Points with a single replica are drawn
-from a normal distribution with the run's own standard error instead.
+Point errors and the parametric bootstrap: each run carries its own standard error
+(from its statistical inefficiency), so a point's mean over its replicas has the error
+``sqrt(sum e_i^2) / n``; when the replicas scatter about their mean more than their
+errors allow (chi2/dof > 1 with n - 1 degrees of freedom) that error is widened by the
+Birge ratio. A resampling of two or three replicas alone says little about the spread,
+so the crossing estimators draw every point mean from a normal distribution with this
+error (a parametric bootstrap; Efron and Tibshirani, An Introduction to the Bootstrap,
+1993, section 6.5 [memory]).
+
+The finite-N estimators 1-4 give one value per chain length or per pair of lengths
+(``details["pairs"]`` or ``details["per_length"]``); their combined ``value`` is the
+inverse-variance mean over N, which carries the finite-N bias. The long-chain value is
+their extrapolation in N (:mod:`beadsim.studies.extrapolation`). The Rg crossing of a
+pair is also where nu_eff between the two lengths equals 1/2, so the pairwise nu_eff
+criterion is not a separate estimator; :func:`nu_scaling_theta` fits all N at once.
 """
 
 import logging
@@ -58,7 +67,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from scipy.optimize import least_squares, minimize_scalar
+from scipy.optimize import minimize_scalar
 
 from .._validate import positive_int
 from ..analysis.scaling import fit_power_law
@@ -71,6 +80,9 @@ CONTROL_KINDS = ("temperature", "depth")
 
 REQUIRED_COLUMNS = ("n_beads", "control", "replica", "rg2", "rg2_error", "re2", "re2_error")
 """Columns every estimator needs."""
+
+SIGNED_COLUMNS = ("replica", "nu_internal", "b2")
+"""Columns that may hold zero or negative values (every other checked column must be > 0)."""
 
 W_CRITICAL = 729.0 / 32000.0
 """Smallest three-body coefficient w for which ``alpha^5 - alpha^3 - w/alpha^3`` increases
@@ -159,7 +171,7 @@ def check_table(df, control_kind, columns=REQUIRED_COLUMNS):
             raise InputError(f"df: column {name} has missing values")
         if np.any(np.isinf(values)):
             raise InputError(f"df: column {name} has infinite values")
-        if name not in ("replica", "nu_internal") and np.any(values <= 0):
+        if name not in SIGNED_COLUMNS and np.any(values <= 0):
             raise InputError(f"df: column {name} must be > 0 (or NaN for not measured) in every row")
     n = out["n_beads"].to_numpy(dtype=np.float64)
     if np.any(n != np.round(n)) or np.any(n < 2):
@@ -231,29 +243,28 @@ def point_means(df, column):
     Returns
     -------
     pandas.DataFrame
-        Columns ``n_beads``, ``control``, ``mean``, ``error`` (``sqrt(sum e^2)/n``), ``n_replicas``;
+        Columns ``n_beads``, ``control``, ``mean``, ``error`` (``sqrt(sum e^2)/n``, widened by the
+        Birge ratio of the replicas' scatter when it exceeds 1; module notes), ``n_replicas``;
         sorted by (n_beads, control).
     """
-    grouped = df.groupby(["n_beads", "control"], sort=True)
-    out = grouped[column].agg(["mean", "size"]).rename(columns={"size": "n_replicas"})
-    out["error"] = np.sqrt(grouped[column + "_error"].apply(lambda e: np.sum(e ** 2))) / out["n_replicas"]
-    return out.reset_index()
+    rows = []
+    for (n, c), group in df.groupby(["n_beads", "control"], sort=True):
+        values = group[column].to_numpy(dtype=np.float64)
+        errors = group[column + "_error"].to_numpy(dtype=np.float64)
+        mean = float(values.mean())
+        error = float(np.sqrt(np.sum(errors ** 2)) / values.size)
+        if values.size > 1 and np.all(errors > 0):
+            chi2 = float(np.sum((values - mean) ** 2 / errors ** 2) / (values.size - 1))
+            error *= np.sqrt(max(chi2, 1.0))
+        rows.append({"n_beads": n, "control": c, "mean": mean, "error": error, "n_replicas": values.size})
+    return pd.DataFrame(rows, columns=["n_beads", "control", "mean", "error", "n_replicas"])
 
 
 def _bootstrap_point_means(df, column, n_bootstrap, rng):
-    """Resampled replica means, shape (n_bootstrap, n_points), in :func:`point_means` order."""
-    groups = df.groupby(["n_beads", "control"], sort=True)
-    draws = np.empty((n_bootstrap, groups.ngroups))
-    for j, (_, group) in enumerate(groups):
-        values = group[column].to_numpy(dtype=np.float64)
-        n = values.size
-        if n == 1:
-            draws[:, j] = values[0] + group[column + "_error"].to_numpy()[0] * rng.standard_normal(n_bootstrap)
-            continue
-        mean = values.mean()
-        resampled = values[rng.integers(0, n, size=(n_bootstrap, n))].mean(axis=1)
-        draws[:, j] = mean + np.sqrt(n / (n - 1.0)) * (resampled - mean)
-    return draws
+    """Point means drawn from normal distributions with their errors (module notes), shape
+    (n_bootstrap, n_points), in :func:`point_means` order."""
+    means = point_means(df, column)
+    return means["mean"].to_numpy() + means["error"].to_numpy() * rng.standard_normal((n_bootstrap, len(means)))
 
 
 def _describe(df):
@@ -631,6 +642,39 @@ def ratio_theta(df, control_kind, degree=2, window=5):
                                 degree, window)
 
 
+def boyle_theta(df, control_kind, degree=2, window=5):
+    """Chain Boyle point: where the second virial coefficient B2 of two N-bead chains vanishes, per N.
+
+    Two chains repel each other on the good-solvent side (B2 > 0) and attract on the poor side;
+    for chains of N beads B2 passes zero at the Boyle point T_B(N), which approaches theta as N
+    grows (Grassberger and Hegger, J. Chem. Phys. 102, 6881, 1995 [memory]).
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+        Results table with ``b2`` and ``b2_error`` columns (sigma^3); without them the estimate is
+        None with a note.
+    control_kind : {"temperature", "depth"}
+    degree, window : int
+        Local polynomial degree and number of control values fitted.
+
+    Returns
+    -------
+    Estimate
+        As :func:`nu_internal_theta`.
+    """
+    method = "B2 = 0 (chain Boyle point)"
+    df, notes, skipped = _start(df, control_kind, method, ("b2", "b2_error"), 1)
+    if skipped:
+        return skipped
+
+    def column_of(group):
+        m = point_means(group, "b2")
+        return m["control"].to_numpy(), m["mean"].to_numpy(), m["error"].to_numpy()
+
+    return _per_length_crossing(df, control_kind, method, notes, column_of, lambda n: 0.0, degree, window)
+
+
 def flory_alpha(z, w):
     """Expansion factor alpha solving ``alpha^5 - alpha^3 - w / alpha^3 = z``.
 
@@ -687,83 +731,6 @@ def flory_nu_local(z, w):
     z = np.asarray(z, dtype=np.float64)
     a = flory_alpha(z, w)
     return 0.5 + z / (2.0 * a * (5 * a ** 4 - 3 * a ** 2 + 3 * w / a ** 4))
-
-
-def flory_fit_theta(df, control_kind):
-    """Fit the expansion-factor equation with two- and three-body terms to all N at once.
-
-    Model for the replica-averaged ``<Rg^2>`` of chain length N at control c::
-
-        <Rg^2> = b2 * (N^2 - 1)/(6N) * alpha^2,
-        alpha^5 - alpha^3 = v(c) N^(1/2) + w / alpha^3,     v(c) = A * tau(c, theta)
-
-    (equation and references in :func:`flory_alpha`; tau in the module notes). Parameters
-    theta, A > 0, w >= :data:`W_CRITICAL` and b2 > 0 (unperturbed mean-square bond length,
-    sigma^2) by weighted least squares (``scipy.optimize.least_squares``, residuals
-    ``(model - mean) / error``), started from five theta values across the control range;
-    covariance ``(J^T J)^-1`` with the errors taken as absolute. The same alpha is used for
-    all N (ideal-chain finite-N shape factor); prefactors of order one are absorbed in A and w.
-
-    Parameters
-    ----------
-    df : pandas.DataFrame
-        Results table (module notes).
-    control_kind : {"temperature", "depth"}
-
-    Returns
-    -------
-    Estimate
-        ``value`` = theta; ``details``: ``amplitude`` (A) with ``amplitude_error``, ``w``,
-        ``w_error``, ``b2``, ``b2_error``, ``covariance`` (4x4, order theta, A, w, b2),
-        ``chi2_reduced``. The two-body strength is ``v(c) = A tau(c, theta)``.
-    """
-    method = "Flory fit with three-body term"
-    df, notes, skipped = _start(df, control_kind, method, ("rg2", "rg2_error"))
-    if skipped:
-        return skipped
-    means = point_means(df, "rg2")
-    n = means["n_beads"].to_numpy(dtype=np.float64)
-    c = means["control"].to_numpy()
-    y, err = means["mean"].to_numpy(), means["error"].to_numpy()
-    if y.size <= 4:
-        return Estimate(method, None, None, _describe(df),
-                        tuple(notes + [f"needs more than 4 (N, control) points, has {y.size}"]))
-    shape, root_n = ideal_rg2_factor(n), np.sqrt(n)
-
-    def model(p):
-        theta, amplitude, w, b2 = p
-        return b2 * shape * flory_alpha(amplitude * tau_from_control(c, theta, control_kind) * root_n, w) ** 2
-
-    def residuals(p):
-        return (model(p) - y) / err
-
-    b2_start = float(np.median(y / shape))
-    lower, upper = [c.min() * 1e-3, 1e-6, W_CRITICAL, 1e-6], [np.inf, np.inf, np.inf, np.inf]
-    best = None
-    for theta0 in np.quantile(c, [0.1, 0.3, 0.5, 0.7, 0.9]):
-        spread = np.max(np.abs(tau_from_control(c, theta0, control_kind))) * root_n.max()
-        start = [theta0, 2.0 / max(spread, 1e-6), 0.1, b2_start]
-        fit = least_squares(residuals, start, bounds=(lower, upper), x_scale="jac")
-        if best is None or fit.cost < best.cost:
-            best = fit
-    dof = y.size - 4
-    chi2 = float(2.0 * best.cost / dof) if dof > 0 else float("nan")
-    normal = best.jac.T @ best.jac
-    if np.linalg.cond(normal) > 1e12:
-        return Estimate(method, None, None, _describe(df),
-                        tuple(notes) + ("parameters not identifiable from these data (singular fit matrix); widen the control "
-                         "range or add chain lengths",), {"parameters": best.x.tolist()})
-    cov = np.linalg.inv(normal)
-    errors = np.sqrt(np.diag(cov))
-    if chi2 > 2.0:
-        notes.append(f"poor fit (chi2/dof = {chi2:.2f}); the model misses the data and errors are too small")
-    if best.active_mask[2] != 0:
-        notes.append("w at its lower bound W_CRITICAL: the data suggest a sharper (first-order-like) collapse")
-    theta, amplitude, w, b2 = best.x
-    return Estimate(method, float(theta), float(errors[0]), _describe(df), tuple(notes),
-                    {"amplitude": float(amplitude), "amplitude_error": float(errors[1]), "w": float(w),
-                     "w_error": float(errors[2]), "b2": float(b2), "b2_error": float(errors[3]),
-                     "covariance": cov, "chi2_reduced": chi2})
 
 
 def _collapse_quality(theta, sets, control_kind):
@@ -877,7 +844,7 @@ def summarize_theta(df, control_kind, seed=0, n_bootstrap=200):
     Returns
     -------
     list of Estimate
-        In the order: crossing (Rg, Re), nu_eff (N-scaling, internal), ratio, Flory fit, collapse.
+        In the order: crossing (Rg, Re), nu_eff (N-scaling, internal), ratio, Boyle point, collapse.
         Use :func:`estimates_table` for a DataFrame.
     """
     df = check_table(df, control_kind)
@@ -888,7 +855,7 @@ def summarize_theta(df, control_kind, seed=0, n_bootstrap=200):
         nu_scaling_theta(df, control_kind),
         nu_internal_theta(df, control_kind),
         ratio_theta(df, control_kind),
-        flory_fit_theta(df, control_kind),
+        boyle_theta(df, control_kind),
         collapse_theta(df, control_kind, max(2, n_bootstrap // 2), seed),
     ]
     for e in estimates:
@@ -917,7 +884,7 @@ def estimates_table(estimates):
 
 def flory_model_table(n_beads, controls, theta, amplitude, w, b2=1.0, control_kind="temperature",
                       n_replicas=4, relative_error=0.01, nu_error=0.005, seed=0):
-    """Synthetic results table with a known theta, from the model of :func:`flory_fit_theta`.
+    """Synthetic results table with a known theta, from the expansion-factor model of :func:`flory_alpha`.
 
     ``rg2 = b2 (N^2-1)/(6N) alpha^2``, ``re2 = b2 (N-1) alpha^2`` (so the ratio is the ideal
     ``6N/(N+1)`` everywhere), ``nu_internal`` = :func:`flory_nu_local`; every run adds independent
