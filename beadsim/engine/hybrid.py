@@ -12,19 +12,22 @@ After the moves the Verlet list is rebuilt and the forces recomputed.
 
 Tuned pivot count: with ``accepted_pivots`` set, the pivot moves per round are
 chosen once, at the first round at or after step ``tune_until`` (the end of
-equilibration), as ``ceil(accepted_pivots / a)`` clipped to
-[:data:`MIN_TUNED_PIVOTS`, :data:`MAX_TUNED_PIVOTS`], with ``a`` the pivot
-acceptance measured over the rounds after ``tune_until / 2``. Rounds after that
+equilibration), from the pivot acceptance ``a`` measured over the rounds after
+``tune_until / 2``: ``ceil(accepted_pivots / a)`` clipped to
+[:data:`MIN_TUNED_PIVOTS`, :data:`MAX_TUNED_PIVOTS`] when ``a`` is at least
+:data:`MIN_PIVOT_ACCEPTANCE`, and :data:`FEW_PIVOTS` below it. Rounds after that
 use the fixed count, so production is an ordinary Markov chain with a
-Boltzmann-invariant kernel; the adaptation touches equilibration only. The
-rule "a fixed number of accepted pivots per round" comes from measurement
-(analysis/statics_efficiency.md): at N = 256 the best mix near theta (acceptance
-17 %) and in the globule (2-3 %) both accepted about three pivots per round of
-20 Langevin steps, although the pivot counts differ fivefold.
+Boltzmann-invariant kernel; the adaptation touches equilibration only.
 
-The moves teleport parts of a chain: time correlations, diffusion and
-relaxation times measured from a hybrid run mean nothing. Only static
-(equilibrium) averages are valid.
+Why two branches (measured in analysis/statics_efficiency.md, 256-bead LJ chains):
+per round, the decorrelation rate of Rg grows about linearly with the pivot count,
+``1/g = alpha + beta P`` with ``beta`` proportional to the acceptance, and the cost
+is ``c0 + c_p P``. The independent samples per CPU-second, ``(alpha + beta P) /
+(c0 + c_p P)``, are then monotonic in P: more pivots pay off when ``beta c0 > alpha
+c_p``, fewer otherwise. Near theta (acceptance 17 %) the rate rose from 2.5 to 5.7
+per CPU-second between 5 and 50 pivots per 20 steps; in the globule (2 %) it fell
+from 0.46 to 0.33, and the dynamics-heavy mix of 2 pivots per 20 steps was best.
+Both fits put the break-even acceptance at 3-4.5 %.
 """
 
 import logging
@@ -44,12 +47,18 @@ _MOVE_STREAM = 0x3C6EF372  # distinct from the thermostat's and the builders' st
 
 MOVE_KINDS = {"pivot": KP.PIVOT, "crankshaft": KP.CRANKSHAFT}
 
+MIN_PIVOT_ACCEPTANCE = 0.04
+"""Pivot acceptance below which a tuned count drops to :data:`FEW_PIVOTS` (measured break-even; module notes)."""
+
+FEW_PIVOTS = 2
+"""Pivot moves per round of a tuned count when pivots are rarely accepted (globules): the Langevin steps do
+the sampling and a few pivots still move chain ends (the fastest mix measured there; module notes)."""
+
 MIN_TUNED_PIVOTS = 5
 """Fewest pivot moves per round a tuned count may take (our choice: keeps chain-scale moves in every round)."""
 
 MAX_TUNED_PIVOTS = 500
-"""Most pivot moves per round a tuned count may take (our choice: bounds the cost of a round when almost
-every pivot is rejected, as in cold globules, where the Langevin steps do the sampling)."""
+"""Most pivot moves per round a tuned count may take (our choice: bounds the cost of a round)."""
 
 DYNAMICS_CAUTION = ("hybrid sampling moves chains by Monte Carlo jumps between Langevin segments: "
                     "static averages (Rg, Re, shape, scattering, energies) are valid, but dynamics-derived "
@@ -82,8 +91,9 @@ class HybridSampler:
     crankshaft_max_angle : float
         Largest crankshaft rotation, degrees (0 < angle <= 180).
     accepted_pivots : float, optional
-        Tune the pivot moves per round so that about this many are accepted per round
-        (module notes); ``pivot_moves`` is then the count used until the tuning.
+        Tune the pivot moves per round so that about this many are accepted per round, or
+        use :data:`FEW_PIVOTS` when pivots are rarely accepted (module notes); ``pivot_moves``
+        is the count used until the tuning.
     tune_until : int
         Step at or after which the pivot count is tuned (the end of equilibration).
     attach : bool
@@ -207,8 +217,11 @@ class HybridSampler:
         if step < self.tune_until:
             return
         tried, took = self.tuning[:2]
-        wanted = MAX_TUNED_PIVOTS if took == 0 else math.ceil(self.accepted_pivots * tried / took)
-        self.moves["pivot"] = int(min(MAX_TUNED_PIVOTS, max(MIN_TUNED_PIVOTS, wanted)))
+        if took < MIN_PIVOT_ACCEPTANCE * tried or tried == 0:
+            self.moves["pivot"] = FEW_PIVOTS
+        else:
+            wanted = math.ceil(self.accepted_pivots * tried / took)
+            self.moves["pivot"] = int(min(MAX_TUNED_PIVOTS, max(MIN_TUNED_PIVOTS, wanted)))
         self.tuning[2] = 1
         log.info("hybrid sampling: pivot acceptance %.3g over the tuning window; %d pivot moves per round from "
                  "step %d", took / tried if tried else float("nan"), self.moves["pivot"], step)

@@ -313,7 +313,7 @@ def extrapolation_figure(extrapolations, combined, control_kind, path):
     exponent = next((e.exponent for e in extrapolations), 0.5)
     ax.set_xlim(-0.02 * max(x_max, 0.1), 1.05 * max(x_max, 0.1))
     ax.set_xlabel(f"N^(-{exponent:g})  (pairs at their effective length)")
-    ax.set_ylabel(f"finite-N theta estimate, {_control_label(control_kind)}")
+    ax.set_ylabel("theta(N) [epsilon/k_B]" if control_kind == "temperature" else "theta depth(N) [epsilon]")
     ax.legend(frameon=False, fontsize="x-small")
     return _save(fig, path)
 

@@ -107,10 +107,10 @@ def _control_values(study, src):
 
 #: Hybrid settings a study gives an isolated-chain model whose base input names no sampling method:
 #: rounds of 20 Langevin steps, each followed by pivots whose count is tuned at the end of equilibration
-#: so that about 3 are accepted per round (20 until then). Measured in analysis/statics_efficiency.md:
-#: at N = 256 this mix is the fastest of those tried both near theta and in the globule.
+#: (20 until then): about 8 accepted per round where pivots are accepted often (coils), 2 per round where
+#: they are not (globules). Measured in analysis/statics_efficiency.md (engine.hybrid module notes).
 STUDY_HYBRID = {"method": "hybrid", "segment_steps": 20, "pivot_moves_per_segment": 20,
-                "accepted_pivots_per_segment": 3.0, "crankshaft_moves_per_segment": 0}
+                "accepted_pivots_per_segment": 8.0, "crankshaft_moves_per_segment": 0}
 
 
 def choose_sampler(base, explicit):
@@ -143,7 +143,8 @@ def choose_sampler(base, explicit):
     sampling.update(STUDY_HYBRID)
     return {"settings": sampling,
             "note": "hybrid (the base input names no [sampling] method, so each isolated chain is sampled by "
-                    "Langevin segments of 20 steps and pivot moves, about 3 accepted per segment; statics only)"}
+                    "Langevin segments of 20 steps and pivot moves tuned per point: about 8 accepted per "
+                    "segment in coils, 2 per segment where pivots are rarely accepted; statics only)"}
 
 
 def _check_control(base, control, src):

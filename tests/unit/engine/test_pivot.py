@@ -175,20 +175,22 @@ def test_hybrid_run_resumes_bit_for_bit():
 def test_tuned_pivot_count_follows_the_acceptance_of_the_second_half_of_equilibration():
     """With accepted_pivots = 3 and tune_until = 1,000 steps (rounds of 20 steps), the pivot count from
     step 1,000 on is ceil(3 / a), a the pivot acceptance of the rounds after step 500, clipped to
-    [MIN_TUNED_PIVOTS, MAX_TUNED_PIVOTS]. Until the tuning the tuned sampler draws the same moves as a
-    fixed-count one, so a is read from the fixed-count sampler's own counters at steps 500 and 1,000."""
-    from beadsim.engine.hybrid import MAX_TUNED_PIVOTS, MIN_TUNED_PIVOTS
+    [MIN_TUNED_PIVOTS, MAX_TUNED_PIVOTS] (a is well above MIN_PIVOT_ACCEPTANCE here). Until the tuning the
+    tuned sampler draws the same moves as a fixed-count one, so a is read from the fixed-count sampler's
+    own counters at steps 500 and 1,000."""
+    from beadsim.engine.hybrid import MAX_TUNED_PIVOTS, MIN_PIVOT_ACCEPTANCE, MIN_TUNED_PIVOTS
     system = bs.build_chains(48, seed=6)
     ff = bs.ForceField(bs.LennardJones(cutoff=2.5), bs.FENE())
-    sim, fixed = _sampler(system, ff, kT=1.5, segment_steps=20, pivot_moves=10)
+    sim, fixed = _sampler(system, ff, kT=3.0, segment_steps=20, pivot_moves=10)
     sim.minimize()
     start = sim.system.copy()
     sim.run(500)
     at_half = fixed.counts["pivot"].copy()
     sim.run(500)
     tried, took = fixed.counts["pivot"] - at_half
+    assert took > 2 * MIN_PIVOT_ACCEPTANCE * tried
     expected = min(MAX_TUNED_PIVOTS, max(MIN_TUNED_PIVOTS, math.ceil(3 * tried / took)))
-    sim2, tuned = _sampler(start, ff, kT=1.5, segment_steps=20, pivot_moves=10, accepted_pivots=3.0,
+    sim2, tuned = _sampler(start, ff, kT=3.0, segment_steps=20, pivot_moves=10, accepted_pivots=3.0,
                            tune_until=1_000)
     sim2.run(980)
     assert tuned.moves["pivot"] == 10 and tuned.acceptance()["pivot"]["tuned_moves_per_segment"] is None
@@ -207,6 +209,19 @@ def test_phantom_chain_tunes_to_the_fewest_pivots():
                       pivot_moves=40, accepted_pivots=3.0, tune_until=200)
     sim.run(300)
     assert s.moves["pivot"] == MIN_TUNED_PIVOTS
+
+
+def test_rarely_accepted_pivots_tune_to_few_pivots():
+    """A compact LJ globule at kT = 0.8 (48 beads, rounds of 20 steps) accepts far fewer than
+    MIN_PIVOT_ACCEPTANCE of its pivots, so the tuned count is FEW_PIVOTS whatever the target."""
+    from beadsim.engine.hybrid import FEW_PIVOTS, MIN_PIVOT_ACCEPTANCE
+    system = bs.build_chains(48, seed=6)
+    sim, s = _sampler(system, bs.ForceField(bs.LennardJones(cutoff=2.5), bs.FENE()), kT=0.8, segment_steps=20,
+                      pivot_moves=10, accepted_pivots=8.0, tune_until=6_000)
+    sim.minimize()
+    sim.run(6_000)
+    tried, took = s.tuning[:2]
+    assert took < MIN_PIVOT_ACCEPTANCE * tried and s.moves["pivot"] == FEW_PIVOTS
 
 
 def test_tuned_hybrid_run_resumes_bit_for_bit_across_the_tuning():
