@@ -218,6 +218,8 @@ def run_point(task):
 
     settings, folder = task["settings"], Path(task["folder"])
     resume = (folder / CHECKPOINT_FILE).exists()
+    if resume:
+        settings = _extended_settings(settings, folder, task)
     restarted = False
     try:
         run(settings, folder, resume=resume, overwrite=not resume, progress=False, allow_longer=True)
@@ -240,6 +242,25 @@ def run_point(task):
     result["host"] = socket.gethostname()
     result["restarted"] = restarted
     return result
+
+
+def _extended_settings(settings, folder, task):
+    """Settings of a point whose run a stopped sweep had already extended towards its target precision.
+
+    The target loop of :func:`run_point` lengthens the production run in the folder; a point stopped
+    during that phase resumes with the longer run (up to the cap) instead of being refused as a run
+    with a different input.
+    """
+    from ..runner import INPUT_FILE
+
+    if task["target"] is None or not (folder / INPUT_FILE).exists():
+        return settings
+    stored = load_toml(folder / INPUT_FILE).get("run", {}).get("production_steps")
+    if not isinstance(stored, int) or not settings["run"]["production_steps"] < stored <= task["cap"]:
+        return settings
+    settings = copy.deepcopy(settings)
+    settings["run"]["production_steps"] = stored
+    return settings
 
 
 def _precise_enough(result, target):

@@ -161,3 +161,21 @@ def test_single_chain_length_skips_estimators_that_need_two(tmp_path, capsys):
     assert "chain length" in crossing and " - " in crossing
     assert (out / "figures" / "size_crossing.png").exists()
     assert (out / "study_summary.json").exists()
+
+
+def test_point_stopped_while_extending_towards_its_target_resumes(tmp_path):
+    """A point whose production run the target loop had already lengthened (a sweep stopped in that phase
+    leaves the longer input in the point folder) resumes with that length instead of being refused as a run
+    with a different input."""
+    from beadsim.studies.sweep import point_settings, read_study, run_point
+
+    path = _study(tmp_path, lengths="[10]", values="[3.0]", steps=2000,
+                  extra="target_relative_error = 1e-6\nmax_production_steps = 8000\n")
+    study, base = read_study(path)
+    point = {"n_beads": 10, "control": 3.0, "replica": 0, "seed": 5}
+    task = {"settings": point_settings(base, study, point), "folder": str(tmp_path / "point"),
+            "target": study["target_relative_error"], "cap": study["max_production_steps"]}
+    first = run_point(task)
+    assert first["production_steps"] == 8000  # 2000 -> 4000 -> 8000: the target is out of reach
+    again = run_point(task)  # as after a restart: same task, the folder holds the 8,000-step run
+    assert again["production_steps"] == 8000 and again["rg2"] == first["rg2"]
