@@ -140,6 +140,51 @@ def nu_eff_figure(df, control_kind, path, estimate=None):
     return _save(fig, path)
 
 
+#: Interpenetration ratio of long self-avoiding walks (Li, Madras and Sokal, J. Stat. Phys. 80, 661, 1995;
+#: from memory), drawn for reference.
+PSI_SAW = 0.247
+
+
+def second_virial_figure(df, control_kind, path, estimate=None):
+    """Interpenetration ratio Psi* = B2 / (4 pi^(3/2) <Rg^2>^(3/2)) versus control for every N.
+
+    Psi* is zero where B2 changes sign (the chain Boyle point) and tends to about 0.247 in good
+    solvent (:data:`PSI_SAW`).
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+        Results table with ``psi_star`` and ``psi_star_error``; runs without them are left out.
+    control_kind : {"temperature", "depth"}
+    path : str or os.PathLike
+        Output (module notes).
+    estimate : Estimate, optional
+        Theta estimate to mark.
+
+    Returns
+    -------
+    list of str
+    """
+    df = check_table(df, control_kind)
+    fig, ax = _axes()
+    if {"psi_star", "psi_star_error"} <= set(df.columns):
+        measured, _ = usable_runs(df, ("psi_star", "psi_star_error"))
+        for n, group in measured.groupby("n_beads", sort=True):
+            m = group.groupby("control", sort=True).agg(psi=("psi_star", "mean"), err=("psi_star_error", "mean"),
+                                                         runs=("psi_star", "size")).reset_index()
+            ax.errorbar(m["control"], m["psi"], m["err"] / np.sqrt(m["runs"]), marker="o", ms=3, lw=0.8, capsize=2,
+                        label=f"N = {n}")
+    ax.axhline(0.0, color="C3", lw=0.9)
+    ax.axhline(PSI_SAW, color="0.5", lw=0.9, ls=":")
+    ax.annotate("0.247 (self-avoiding walk)", (1.0, PSI_SAW), xycoords=("axes fraction", "data"), ha="right",
+                va="bottom", fontsize="x-small")
+    _mark_estimate(ax, estimate)
+    ax.set_xlabel(_control_label(control_kind))
+    ax.set_ylabel("Psi* = B2 / (4 pi^(3/2) <Rg^2>^(3/2))")
+    ax.legend(frameon=False, fontsize="x-small")
+    return _save(fig, path)
+
+
 def collapse_figure(df, control_kind, theta, path):
     """Scaling collapse: ``6N<Rg^2>/(N^2-1)`` versus ``tau N^(1/2)`` for the given theta.
 

@@ -662,6 +662,7 @@ def estimate_everything(frame, control_kind, figures, seed=0, curves_csv=None):
     fig.size_crossing_figure(frame, control_kind, figures / "size_crossing", estimate=crossing)
     fig.nu_eff_figure(frame, control_kind, figures / "nu_eff", estimate=nu)
     fig.extrapolation_figure(extrapolations, combined, control_kind, figures / "theta_extrapolation")
+    fig.second_virial_figure(frame, control_kind, figures / "second_virial")
     quoted = (None if combined.value is None
               else Estimate("quoted theta (N -> infinity)", combined.value, combined.total_error, ""))
     if quoted is not None:
