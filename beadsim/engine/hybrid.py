@@ -57,8 +57,10 @@ the sampling and a few pivots still move chain ends (the fastest mix measured th
 MIN_TUNED_PIVOTS = 5
 """Fewest pivot moves per round a tuned count may take (our choice: keeps chain-scale moves in every round)."""
 
-MAX_TUNED_PIVOTS = 500
-"""Most pivot moves per round a tuned count may take (our choice: bounds the cost of a round)."""
+MAX_TUNED_PIVOTS = 64
+"""Most pivot moves per round a tuned count may take (our choice: a little above the 50 per 20 steps measured
+fastest near theta at N = 256; near the collapse, where 4-10 % of pivots are accepted, an uncapped count
+of 80-200 made those points the slowest of a study)."""
 
 DYNAMICS_CAUTION = ("hybrid sampling moves chains by Monte Carlo jumps between Langevin segments: "
                     "static averages (Rg, Re, shape, scattering, energies) are valid, but dynamics-derived "
