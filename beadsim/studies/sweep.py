@@ -647,8 +647,12 @@ def estimate_everything(frame, control_kind, figures, seed=0, curves_csv=None):
     figures.mkdir(parents=True, exist_ok=True)
     estimates = summarize_theta(frame, control_kind, seed=seed)
     extrapolations = [extrapolate_estimate(e) for e in estimates if e.method.startswith(EXTRAPOLATED)]
-    combined = combine(extrapolations, same_data=True)
-    out = {"theta": [e.as_dict() for e in estimates], "theta_extrapolated": [x.as_dict() for x in extrapolations],
+    forms = [form_error(e, x) for e, x in zip((e for e in estimates if e.method.startswith(EXTRAPOLATED)),
+                                               extrapolations)]
+    combined = combine([(x.method, x.value, None if x.error is None or f is None else float(np.hypot(x.error, f)))
+                        for x, f in zip(extrapolations, forms)], same_data=True)
+    out = {"theta": [e.as_dict() for e in estimates],
+           "theta_extrapolated": [{**x.as_dict(), "form_error": f} for x, f in zip(extrapolations, forms)],
            "figures": str(figures), "collapse": [], "collapse_fits": []}
     if combined.value is not None:
         out["theta_combined"] = {
@@ -687,8 +691,43 @@ def estimate_everything(frame, control_kind, figures, seed=0, curves_csv=None):
                                             else f"{e.value:.4g}")
         out["collapse"].append(f"{e.method} ({e.fitted_on}): {text}" + (f"  [{'; '.join(e.notes)}]" if e.notes else ""))
         out["collapse_fits"].append(e.as_dict())
-    out["verdict"] = verdict(frame, control_kind, combined, extrapolations, sigmoids, exponents)
+    out["verdict"] = verdict(frame, control_kind, combined, out["theta_extrapolated"], sigmoids, exponents)
     return out
+
+
+#: Correction exponent of the alternative extrapolation whose difference from the N^(-1/2) one is the
+#: form error (:func:`form_error`).
+ALTERNATIVE_EXPONENT = 1.0
+
+
+def form_error(estimate, extrapolation):
+    """Uncertainty of an extrapolation from the form of its finite-size correction.
+
+    The leading correction of theta-point estimates is of order N^(-1/2) in mean-field theory
+    (Grassberger and Hegger 1995 [memory]), but with logarithmic three-body terms and the next
+    corrections the accessible chain lengths do not pin the form down. The same finite-N values are
+    therefore also fitted with a N^(-1) correction (:data:`ALTERNATIVE_EXPONENT`), and the difference of
+    the two limits is taken as a systematic error of the extrapolation (common practice: vary the
+    fitted form). It is added in quadrature to the fit's error before the estimators are combined.
+
+    Parameters
+    ----------
+    estimate : Estimate
+        Finite-N estimator with per-pair or per-length values.
+    extrapolation : beadsim.studies.extrapolation.Extrapolation
+        Its N^(-1/2) extrapolation.
+
+    Returns
+    -------
+    float or None
+        ``|theta(x = 1/2) - theta(x = 1)|`` (control units), None when either has no value.
+    """
+    from .extrapolation import extrapolate_estimate
+
+    if extrapolation.value is None:
+        return None
+    other = extrapolate_estimate(estimate, exponent=ALTERNATIVE_EXPONENT)
+    return None if other.value is None else abs(extrapolation.value - other.value)
 
 
 def _undetermined(reason):
@@ -705,8 +744,8 @@ def verdict(frame, control_kind, combined, extrapolations, sigmoids, exponents):
     control_kind : {"temperature", "depth"}
     combined : beadsim.studies.extrapolation.CombinedEstimate
         The quoted theta.
-    extrapolations : sequence of beadsim.studies.extrapolation.Extrapolation
-        What it combines.
+    extrapolations : sequence of dict
+        What it combines: :meth:`beadsim.studies.extrapolation.Extrapolation.as_dict` with ``form_error``.
     sigmoids : sequence of Estimate
         Logistic midpoints per N (:func:`beadsim.studies.collapse.transition_sigmoids`).
     exponents : sequence of Estimate
@@ -722,18 +761,20 @@ def verdict(frame, control_kind, combined, extrapolations, sigmoids, exponents):
     lengths = sorted(int(n) for n in frame.loc[np.isfinite(frame["rg2"]), "n_beads"].unique())
     out = {}
     if combined.value is None:
-        reasons = sorted({n for x in extrapolations for n in x.notes})
+        reasons = sorted({n for x in extrapolations for n in x["note"].split("; ") if n})
         out["theta"] = _undetermined("; ".join(reasons) or "no estimator gave a finite-N value")
     else:
-        used = [x for x in extrapolations if x.value is not None]
+        used = [x for x in extrapolations if x["value"] is not None]
         out["theta"] = {
             "value": combined.value, "error": combined.total_error,
             "statistical_error": combined.statistical_error, "systematic_error": combined.systematic_error,
             "method": "each estimator's finite-N values fitted to theta + a N^(-1/2) (Grassberger and Hegger "
-                      "1995), the fits combined by inverse-variance weights; error = statistical (bounded for "
-                      "estimators of the same runs) and the spread between estimators, in quadrature",
-            "estimators": [f"{x.method}: {x.value:.4g} +- {x.error:.2g}" + (
-                f" (chi2/dof {x.chi2_per_dof:.2g})" if x.chi2_per_dof is not None else " (2 points: exact line)")
+                      "1995), with the change under a N^(-1) fit as its form error; the fits combined by "
+                      "inverse-variance weights; error = statistical (fit and form, bounded for estimators of the "
+                      "same runs) and the spread between estimators, in quadrature",
+            "estimators": [f"{x['method']}: {x['value']:.4g} +- {x['error']:.2g} (fit)" + (
+                f" +- {x['form_error']:.2g} (form)" if x["form_error"] is not None else "") + (
+                f", chi2/dof {x['chi2_per_dof']:.2g}" if x["chi2_per_dof"] is not None else ", 2 points: exact line")
                 for x in used],
             "agree_within_errors": list(combined.agreeing), "disagree": list(combined.disagreeing),
             "chain_lengths": lengths}
