@@ -107,7 +107,6 @@ def build_simulation(settings):
                       crankshaft_max_angle=sm["crankshaft_max_angle"],
                       accepted_pivots=sm["accepted_pivots_per_segment"],
                       tune_until=settings["run"]["equilibration_steps"])
-        log.warning("%s", DYNAMICS_CAUTION)
     return sim
 
 
@@ -288,6 +287,8 @@ def run(settings, out, *, resume=False, overwrite=False, progress=True, allow_lo
     """
     out = prepare_folder(out, settings, resume, overwrite, allow_longer)
     sim = build_simulation(settings)
+    if sim.hybrid is not None and progress:  # a study says it once for all its points; summary.json always does
+        log.warning("%s", DYNAMICS_CAUTION)
     total = settings["run"]["equilibration_steps"] + settings["run"]["production_steps"]
     checkpoint = out / CHECKPOINT_FILE
     resuming = resume and checkpoint.exists()
