@@ -578,6 +578,19 @@ def _per_length_crossing(df, control_kind, method, notes, column_of, level_of, d
     return Estimate(method, value, error, _describe(df), tuple(notes), {"per_length": per_n, "chi2_reduced": chi2})
 
 
+def _column_crossing(df, control_kind, method, column, level, degree, window):
+    """Per-N crossing of one measured column (its replica means) through a fixed level."""
+    df, notes, skipped = _start(df, control_kind, method, (column, column + "_error"), 1)
+    if skipped:
+        return skipped
+
+    def column_of(group):
+        m = point_means(group, column)
+        return m["control"].to_numpy(), m["mean"].to_numpy(), m["error"].to_numpy()
+
+    return _per_length_crossing(df, control_kind, method, notes, column_of, lambda n: level, degree, window)
+
+
 def nu_internal_theta(df, control_kind, degree=2, window=5):
     """Theta where the internal-distance exponent ``nu_internal`` passes 1/2, per N then combined.
 
@@ -596,16 +609,7 @@ def nu_internal_theta(df, control_kind, degree=2, window=5):
         Inverse-variance mean over N of the per-N crossings (delta-method errors; Birge-scaled if
         they scatter); ``details["per_length"]``.
     """
-    method = "nu_eff(internal) = 1/2"
-    df, notes, skipped = _start(df, control_kind, method, ("nu_internal", "nu_internal_error"), 1)
-    if skipped:
-        return skipped
-
-    def column_of(group):
-        m = point_means(group, "nu_internal")
-        return m["control"].to_numpy(), m["mean"].to_numpy(), m["error"].to_numpy()
-
-    return _per_length_crossing(df, control_kind, method, notes, column_of, lambda n: 0.5, degree, window)
+    return _column_crossing(df, control_kind, "nu_eff(internal) = 1/2", "nu_internal", 0.5, degree, window)
 
 
 def ratio_theta(df, control_kind, degree=2, window=5):
@@ -663,16 +667,7 @@ def boyle_theta(df, control_kind, degree=2, window=5):
     Estimate
         As :func:`nu_internal_theta`.
     """
-    method = "B2 = 0 (chain Boyle point)"
-    df, notes, skipped = _start(df, control_kind, method, ("b2", "b2_error"), 1)
-    if skipped:
-        return skipped
-
-    def column_of(group):
-        m = point_means(group, "b2")
-        return m["control"].to_numpy(), m["mean"].to_numpy(), m["error"].to_numpy()
-
-    return _per_length_crossing(df, control_kind, method, notes, column_of, lambda n: 0.0, degree, window)
+    return _column_crossing(df, control_kind, "B2 = 0 (chain Boyle point)", "b2", 0.0, degree, window)
 
 
 def flory_alpha(z, w):
