@@ -212,7 +212,7 @@ class HybridSampler:
                 sim.refresh_neighbors()
 
     def _tune(self, before):
-        """Count this round's pivots in the tuning window; fix the pivot count once ``tune_until`` is reached."""
+        """Count this round's pivots in the tuning window; set the pivot count for good once ``tune_until`` is reached."""
         step = self.sim.step_count
         if 2 * step > self.tune_until:
             self.tuning[:2] += self.counts["pivot"] - before

@@ -12,8 +12,8 @@ import numba
 from .._validate import positive_int
 
 #: Systems smaller than this run on one thread. Measured on the idle 2-core development machine
-#: (analysis/benchmarks.md, fourth session), two threads ran 1.4 times faster than one at 1,000 beads and
-#: 1.2-1.3 times at 250-500; under heavy oversubscription (second session, load 12-19 on 2 cores) one
+#: (analysis/benchmarks.md, commits 16ca0b8-91fb1d0), two threads ran 1.4 times faster than one at 1,000 beads and
+#: 1.2-1.3 times at 250-500; under heavy oversubscription (commit ed5e1f8, load 12-19 on 2 cores) one
 #: thread had been 1.7-2.4 times faster at 1,000-2,000 beads. From 1,000 beads on, threads pay on an
 #: idle machine; smaller chains, the usual single-chain study, stay on one thread.
 PARALLEL_MIN_BEADS = 1000
