@@ -38,6 +38,7 @@ import numpy as np
 from .._validate import positive, positive_int
 from ..errors import InputError
 from ..kernels import pivot as KP
+from ..kernels import spheretree as KT
 from ..model.build import stream_seed
 from .threads import threads_for
 
@@ -62,10 +63,90 @@ MAX_TUNED_PIVOTS = 64
 fastest near theta at N = 256; near the collapse, where 4-10 % of pivots are accepted, an uncapped count
 of 80-200 made those points the slowest of a study)."""
 
+OVERLAP_GRID = 4096
+"""Distances in (0, cutoff] at which the pair potentials are evaluated to find the overlap radius (our choice:
+a grid step of about 6e-4 sigma at a 2.5 sigma cutoff)."""
+
+TREE_LEAF_BEADS = 8
+"""Most beads in a leaf of the bounding-sphere tree."""
+
+TREE_MIN_BEADS = 16
+"""Pivots of at least this many beads sum their pair energies over the tree, smaller ones through cells
+(measured: 8-16 equally fast, 64 about 15 % slower at N = 512, T = 3.3; analysis/statics_speed.md)."""
+
+OVERLAP_ENERGY = 8.0
+"""Pair energy, in kT, above which a pair counts as overlapping in the factorized Metropolis rule (module
+notes; measured: 1-16 kT give the same speed within 10 % at N = 512, T = 3.3, and at 8 kT not one move of
+5,000 was decided differently from the plain rule)."""
+
 DYNAMICS_CAUTION = ("hybrid sampling moves chains by Monte Carlo jumps between Langevin segments: "
                     "static averages (Rg, Re, shape, scattering, energies) are valid, but dynamics-derived "
                     "quantities (diffusion coefficients, relaxation and autocorrelation times in tau, "
                     "mean-square displacements) are meaningless for this run")
+
+
+class MoveCells:
+    """Hashed linked cells of one edge over every bead, for the Monte Carlo moves (:func:`~beadsim.kernels.pivot.build_cells`).
+
+    Parameters
+    ----------
+    n : int
+        Beads.
+    width : float
+        Cell edge, sigma; 0 means no cells (nothing is built).
+    """
+
+    def __init__(self, n, width):
+        self.width = width
+        self.head = np.full(int(KP.bucket_count(n)), -1, dtype=np.int64)
+        self.nxt = np.full(n, -1, dtype=np.int64)
+        self.prv = np.full(n, -1, dtype=np.int64)
+        self.bucket = np.zeros(n, dtype=np.int64)
+
+    def build(self, pos):
+        """Bin ``pos`` (float64 (n, 3), sigma) afresh."""
+        if self.width > 0.0:
+            KP.build_cells(pos, self.width, self.head, self.nxt, self.prv, self.bucket)
+
+    def arrays(self):
+        """``(width, head, nxt, prv, bucket)`` as the kernels take them."""
+        return self.width, self.head, self.nxt, self.prv, self.bucket
+
+
+class SphereTree:
+    """Bounding-sphere tree over the beads for the pair sums of large pivots (:mod:`beadsim.kernels.spheretree`).
+
+    Parameters
+    ----------
+    n : int
+        Beads.
+    leaf_size : int
+        Most beads in a leaf.
+    """
+
+    def __init__(self, n, leaf_size):
+        capacity = KT.node_capacity(n, leaf_size)
+        self.n = n
+        self.node_lo = np.zeros(capacity, dtype=np.int64)
+        self.node_hi = np.zeros(capacity, dtype=np.int64)
+        self.left = np.full(capacity, -1, dtype=np.int64)
+        self.n_nodes = int(KT.build_tree(n, leaf_size, self.node_lo, self.node_hi, self.left))
+        self.center = np.zeros((capacity, 3))
+        self.radius = np.zeros(capacity)
+        self.moved = np.zeros(capacity, dtype=np.int64)
+        self.fixed = np.zeros(capacity, dtype=np.int64)
+        self.stack = np.zeros(KT.STACK_SIZE, dtype=np.int64)
+        self.pairs = np.zeros((KT.STACK_SIZE, 2), dtype=np.int64)
+
+    def build(self, pos):
+        """Fit every sphere to ``pos`` (float64 (n, 3), sigma)."""
+        KT.update_spheres(pos, self.n_nodes, self.node_lo, self.node_hi, self.left, self.center, self.radius, 0,
+                          self.n, np.eye(3), np.zeros(3), False)
+
+    def arrays(self):
+        """The tree as the kernels take it."""
+        return (self.n_nodes, self.node_lo, self.node_hi, self.left, self.center, self.radius, self.moved,
+                self.fixed, self.stack, self.pairs)
 
 
 def _incidence(n, terms):
@@ -98,6 +179,13 @@ class HybridSampler:
         is the count used until the tuning.
     tune_until : int
         Step at or after which the pivot count is tuned (the end of equilibration).
+    overlap_energy : float or None
+        Pair energy (kT) above which a pair overlaps: moves are accepted by the factorized Metropolis
+        rule, and most rejected ones are found from their overlaps alone (module notes). None: the
+        plain Metropolis rule on the full energy change.
+    tree_min_beads : int or None
+        Pivots of at least this many beads sum their pair energies over a bounding-sphere tree; None sums
+        every move through cells.
     attach : bool
         Make ``sim.advance`` (hence ``sim.run`` and :func:`~beadsim.engine.loop.iterate`)
         interleave the moves, and checkpoints carry the sampler's state.
@@ -124,7 +212,8 @@ class HybridSampler:
     """
 
     def __init__(self, sim, segment_steps=1000, pivot_moves=100, crankshaft_moves=0, crankshaft_max_angle=180.0,
-                 accepted_pivots=None, tune_until=0, attach=True):
+                 accepted_pivots=None, tune_until=0, overlap_energy=OVERLAP_ENERGY, tree_min_beads=TREE_MIN_BEADS,
+                 attach=True):
         system = sim.system
         if system.box.periodic:
             raise InputError("hybrid sampling: pivot and crankshaft moves are implemented for open boxes only "
@@ -161,13 +250,16 @@ class HybridSampler:
         ff = sim.compiled.arrays
         self.bond_start, self.bond_of = _incidence(n, ff[3])
         self.angle_start, self.angle_of = _incidence(n, ff[7])
-        self.width = float(sim.compiled.cutoff)
-        n_buckets = int(KP.bucket_count(n)) if self.width > 0 else 1
-        self.head = np.full(n_buckets, -1, dtype=np.int64)
-        self.nxt = np.full(n, -1, dtype=np.int64)
-        self.prv = np.full(n, -1, dtype=np.int64)
-        self.bucket = np.zeros(n, dtype=np.int64)
+        self.cells = MoveCells(n, float(sim.compiled.cutoff))
+        self.overlap_energy = None if overlap_energy is None else positive(overlap_energy, "overlap_energy")
+        self.overlap_cells = MoveCells(n, 0.0)
+        self.tree = SphereTree(n, TREE_LEAF_BEADS)
+        if tree_min_beads is not None:
+            tree_min_beads = positive_int(tree_min_beads, "tree_min_beads")
+        self.tree_min_beads = n + 1 if tree_min_beads is None or self.cells.width == 0 else tree_min_beads
+        self._overlap_temperature = None
         self.trial = np.zeros((n, 3))
+        self.seen = np.zeros(int(KP.bucket_count(n)) + 1, dtype=np.int64)
         self.seed = stream_seed(sim.seed, _MOVE_STREAM)
         self.move_count = 0
         self.counts = {kind: np.zeros(2, dtype=np.int64) for kind in MOVE_KINDS}
@@ -194,22 +286,41 @@ class HybridSampler:
                   else positive_int(crankshaft_moves, "crankshaft_moves", allow_zero=True)}
         before = self.counts["pivot"].copy()
         pos = sim.system.positions
-        if self.width > 0:
-            KP.build_cells(pos, self.width, self.head, self.nxt, self.prv, self.bucket)
+        n = pos.shape[0]
+        kT = sim.integrator.temperature
+        self._set_overlap_radius(kT)
+        self.cells.build(pos)
+        self.overlap_cells.build(pos)
+        if self.tree_min_beads <= n:
+            self.tree.build(pos)
         for kind, n_moves in wanted.items():
             if n_moves == 0:
                 continue
-            KP.metropolis_moves(MOVE_KINDS[kind], n_moves, self.move_count, self.seed, sim.integrator.temperature,
-                                self.max_angle, pos, sim.system.types, sim.compiled.arrays, sim.compiled.excl_start,
-                                sim.compiled.excl, self.bond_start, self.bond_of, self.angle_start, self.angle_of,
-                                self.candidates, self.chain_lo, self.chain_hi, self.width, self.head, self.nxt,
-                                self.prv, self.bucket, self.trial, self.counts[kind])
+            KP.metropolis_moves(MOVE_KINDS[kind], n_moves, self.move_count, self.seed, kT, self.max_angle, pos,
+                                sim.system.types, sim.compiled.arrays, sim.compiled.excl_start, sim.compiled.excl,
+                                self.bond_start, self.bond_of, self.angle_start, self.angle_of, self.candidates,
+                                self.chain_lo, self.chain_hi, self.cells.arrays(), self.overlap_cells.arrays(),
+                                self._cap(kT), self.tree.arrays(), self.tree_min_beads, self.trial, self.seen,
+                                self.counts[kind])
             self.move_count += n_moves
         if self.accepted_pivots is not None and not self.tuning[2]:
             self._tune(before)
         if refresh:
             with threads_for(sim.system.n_beads):
                 sim.refresh_neighbors()
+
+    def _cap(self, kT):
+        """Pair energy above which a pair overlaps, epsilon (infinite without the overlap split)."""
+        return math.inf if self.overlap_energy is None else self.overlap_energy * kT
+
+    def _set_overlap_radius(self, kT):
+        """Overlap cells of the radius at which pair energies exceed the cap at ``kT`` (computed once per kT)."""
+        if self.overlap_energy is None or kT == self._overlap_temperature or self.cells.width == 0.0:
+            return
+        kinds, params, tables = self.sim.compiled.arrays[:3]
+        self.overlap_cells.width = float(KP.overlap_radius(kinds, params, tables, self._cap(kT), self.cells.width,
+                                                           OVERLAP_GRID))
+        self._overlap_temperature = kT
 
     def _tune(self, before):
         """Count this round's pivots in the tuning window; set the pivot count for good once ``tune_until`` is reached."""

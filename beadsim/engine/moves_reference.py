@@ -3,8 +3,10 @@
 The twin draws the same random numbers, builds the trial positions with
 :class:`scipy.spatial.transform.Rotation` (an independent implementation of the
 quaternion and axis-angle maps) and gets every energy change by recomputing the
-whole energy with :func:`beadsim.engine.reference.reference_forces`. It is the
-oracle of the tests, O(N^2) per move, never a production path.
+whole energy: with :func:`beadsim.engine.reference.reference_forces`, or, for
+the factorized rule, from every pair found by :class:`scipy.spatial.cKDTree`
+(no cells, no tree, no early stop). It is the oracle of the tests, never a
+production path.
 """
 
 from itertools import pairwise
@@ -12,14 +14,46 @@ from itertools import pairwise
 import numpy as np
 from scipy.spatial.transform import Rotation
 
+from scipy.spatial import cKDTree
+
 from ..kernels import pivot as KP
 from ..kernels.random import normal_reference, uniform_open
+from ..model.potentials import NoPair
 from .reference import reference_forces
 
 
 def reference_energy(system, forcefield):
     """Total potential energy (pair + bond + bending), epsilon, recomputed from scratch."""
     return float(np.sum(reference_forces(system, forcefield)[1][:3]))
+
+
+def reference_split_energy(system, forcefield, cap, r_hard):
+    """Overlap and rest energy of ``system`` (open box), epsilon, from every pair in full.
+
+    A pair closer than ``r_hard`` (sigma) with energy ``u > cap`` (epsilon) contributes ``u - cap`` to
+    the overlap energy and ``cap`` to the rest; any other pair ``u`` to the rest, which also holds the
+    bond and bending energy (:mod:`beadsim.kernels.pivot`).
+    """
+    pos = system.positions
+    n_types = int(system.types.max()) + 1
+    table = forcefield.pair_table(n_types)
+    cutoff = max(p.cutoff for row in table for p in row)
+    overlap = rest = 0.0
+    pairs = cKDTree(pos).query_pairs(cutoff, output_type="ndarray") if cutoff > 0 else np.zeros((0, 2), int)
+    excl_start, excl = forcefield.exclusions(system)
+    for a, b in pairs:
+        pot = table[system.types[a]][system.types[b]]
+        if isinstance(pot, NoPair) or b in excl[excl_start[a]:excl_start[a + 1]]:
+            continue
+        r2 = float(np.sum((pos[b] - pos[a]) ** 2))
+        u = float(pot.energy_force(np.array([r2]))[0][0])
+        if r2 < r_hard * r_hard and u > cap:
+            overlap += u - cap
+            rest += cap
+        else:
+            rest += u
+    bonded = reference_forces(system, forcefield)[1][1:3]  # bond and bending energy
+    return overlap, rest + float(np.sum(bonded))
 
 
 def interior_beads(system):
@@ -52,9 +86,13 @@ def reference_trial(system, kind, seed, move, max_angle):
     return trial, p, p + 1
 
 
-def reference_moves(system, forcefield, kind, n_moves, first_move, seed, temperature, max_angle):
+def reference_moves(system, forcefield, kind, n_moves, first_move, seed, temperature, max_angle, split=None):
     """Attempt ``n_moves`` Metropolis moves on a copy of ``system``; twin of
     :func:`~beadsim.kernels.pivot.metropolis_moves`.
+
+    ``split = (cap, r_hard)`` (epsilon, sigma) applies the factorized rule: accept when the move's
+    uniform is below ``min(1, exp(-dO / kT)) min(1, exp(-dR / kT))`` (:func:`reference_split_energy`);
+    None the plain rule on the full energy change.
 
     Returns
     -------
@@ -64,8 +102,13 @@ def reference_moves(system, forcefield, kind, n_moves, first_move, seed, tempera
     energy_changes : float64 (n_moves,)
         dU of each trial, epsilon (full recomputation).
     """
+    def energies():
+        if split is None:
+            return 0.0, reference_energy(state, forcefield)
+        return reference_split_energy(state, forcefield, *split)
+
     state = system.copy()
-    energy = reference_energy(state, forcefield)
+    energy = energies()
     accepted = 0
     changes = np.zeros(n_moves)
     for k in range(n_moves):
@@ -73,10 +116,12 @@ def reference_moves(system, forcefield, kind, n_moves, first_move, seed, tempera
         trial, _, _ = reference_trial(state, kind, seed, move, max_angle)
         old = state.positions
         state.positions = trial
-        new_energy = reference_energy(state, forcefield)
-        changes[k] = d_energy = new_energy - energy
+        new_energy = energies()
+        d_overlap, d_rest = new_energy[0] - energy[0], new_energy[1] - energy[1]
+        changes[k] = d_overlap + d_rest
+        barrier = max(d_overlap, 0.0) + max(d_rest, 0.0)
         u = uniform_open(seed, KP.UNIFORMS_PER_MOVE * move + 6)
-        if d_energy <= 0.0 or u < np.exp(-d_energy / temperature):
+        if barrier <= 0.0 or u < np.exp(-barrier / temperature):
             energy = new_energy
             accepted += 1
         else:

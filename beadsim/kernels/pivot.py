@@ -43,10 +43,12 @@ import numpy as np
 from numba import njit
 
 from .forces import BOND_FENE, BOND_HARMONIC, hermite_table, pair_energy_force
-from .neighbors import _bucket, _is_excluded, cell_stencil
+from .neighbors import _bucket, _is_excluded
 from .random import normal_pair, uniform_open
+from .spheretree import block_pair_energy, update_spheres
 
 PIVOT, CRANKSHAFT = 0, 1
+OVERLAP, REST = 0, 1  # the two parts of the pair energy (_pair_energy_with_fixed)
 UNIFORMS_PER_MOVE = 8
 _NO_CELLS = np.ones(3, dtype=np.int64)  # unused cell counts (open-box hashing ignores them)
 
@@ -116,37 +118,52 @@ def _relink(i, b, head, nxt, prv, bucket):
 
 @njit(cache=True)
 def _pair_energy_with_fixed(i, x, y, z, lo, hi, pos, types, kinds, params, tables, excl_start, excl,
-                            width, head, nxt, near):
-    """Pair energy of bead ``i`` placed at (x, y, z) with every bead outside ``[lo, hi)``.
+                            width, head, nxt, seen, cap, r2_hard, part):
+    """One part of the pair energy of bead ``i`` placed at (x, y, z) with every bead outside ``[lo, hi)``.
 
-    Returns ``(energy, ok)``; ``ok`` is False if a pair sits at zero distance or
-    outside its table (an impossible state: the move is rejected).
+    A pair closer than ``sqrt(r2_hard)`` whose energy ``u`` exceeds ``cap`` has the overlap part
+    ``u - cap``; every other pair has none. ``part`` is ``OVERLAP`` (the sum of overlap parts, over pairs
+    found in cells of edge ``width >= sqrt(r2_hard)``) or ``REST`` (the sum of ``u`` minus overlap parts).
+    Returns ``(energy, ok)``; ``ok`` is False if a pair sits at zero distance or outside its table (an
+    impossible state: the move is rejected).
     """
     n_buckets = head.shape[0]
     cx = math.floor(x / width)
     cy = math.floor(y / width)
     cz = math.floor(z / width)
-    n_near = cell_stencil(cx, cy, cz, _NO_CELLS, False, n_buckets, near)
+    tick = seen[n_buckets] + 1  # buckets stamped with this scan's tick are visited once (hash collisions)
+    seen[n_buckets] = tick
     has_excl = excl_start[i + 1] > excl_start[i]
     ti = types[i]
     energy = 0.0
-    for m in range(n_near):
-        j = head[near[m]]
-        while j >= 0:
-            if j < lo or j >= hi:
-                kind = kinds[ti, types[j]]
-                if kind != 0 and not (has_excl and _is_excluded(i, j, excl_start, excl)):
-                    dx = pos[j, 0] - x
-                    dy = pos[j, 1] - y
-                    dz = pos[j, 2] - z
-                    r2 = dx * dx + dy * dy + dz * dz
-                    if r2 == 0.0:
-                        return 0.0, False
-                    u, _, inside = pair_energy_force(kind, params[ti, types[j]], r2, tables)
-                    if not inside:
-                        return 0.0, False
-                    energy += u
-            j = nxt[j]
+    for ox in range(-1, 2):
+        for oy in range(-1, 2):
+            for oz in range(-1, 2):
+                b = _bucket(cx + ox, cy + oy, cz + oz, _NO_CELLS, False, n_buckets)
+                if seen[b] == tick:
+                    continue
+                seen[b] = tick
+                j = head[b]
+                while j >= 0:
+                    if j < lo or j >= hi:
+                        kind = kinds[ti, types[j]]
+                        if kind != 0 and not (has_excl and _is_excluded(i, j, excl_start, excl)):
+                            dx = pos[j, 0] - x
+                            dy = pos[j, 1] - y
+                            dz = pos[j, 2] - z
+                            r2 = dx * dx + dy * dy + dz * dz
+                            if part == REST or r2 < r2_hard:
+                                if r2 == 0.0:
+                                    return 0.0, False
+                                u, _, inside = pair_energy_force(kind, params[ti, types[j]], r2, tables)
+                                if not inside:
+                                    return 0.0, False
+                                overlaps = r2 < r2_hard and u > cap
+                                if part == OVERLAP:
+                                    energy += u - cap if overlaps else 0.0
+                                else:  # cap itself, not u - (u - cap): that loses the cap's digits when u is huge
+                                    energy += cap if overlaps else u
+                    j = nxt[j]
     return energy, True
 
 
@@ -227,8 +244,11 @@ def _bonded_energy(lo, hi, pos, trial, use_trial, ff, bond_start, bond_of, angle
 
 @njit(cache=True)
 def trial_energy_change(lo, hi, trial, pos, types, ff, excl_start, excl, bond_start, bond_of, angle_start,
-                        angle_of, width, head, nxt, near):
-    """Energy change (epsilon) if beads ``lo .. hi-1`` moved from ``pos`` to ``trial``.
+                        angle_of, width, head, nxt, seen, cap, r2_hard):
+    """Change of the rest energy (epsilon) if beads ``lo .. hi-1`` moved from ``pos`` to ``trial``.
+
+    The rest energy is the pair energy less its overlap parts (:func:`_pair_energy_with_fixed`), plus
+    the bonds and angles; with ``r2_hard = 0`` there are no overlap parts and this is the full dU.
 
     Parameters
     ----------
@@ -249,30 +269,148 @@ def trial_energy_change(lo, hi, trial, pos, types, ff, excl_start, excl, bond_st
         Cell edge of the hashed cells (0 when there is no pair interaction).
     head, nxt : int64 arrays
         Hashed cells of ``pos`` (:func:`build_cells`).
-    near : int64 (27,)
-        Scratch.
+    seen : int64 (n_buckets + 1,)
+        Scratch: visit stamps of the buckets, and the last stamp used (start with zeros).
+    cap, r2_hard : float
+        Overlap split: pairs closer than ``sqrt(r2_hard)`` (sigma) count at most ``cap`` (epsilon).
 
     Returns
     -------
     (float, bool)
-        dU and whether the trial state is allowed (finite energy).
+        The change and whether the trial state is allowed (finite energy).
     """
     kinds, params, tables = ff[0], ff[1], ff[2]
     d_energy = 0.0
     if width > 0.0:
         for i in range(lo, hi):
             u_new, ok = _pair_energy_with_fixed(i, trial[i, 0], trial[i, 1], trial[i, 2], lo, hi, pos, types,
-                                                kinds, params, tables, excl_start, excl, width, head, nxt, near)
+                                                kinds, params, tables, excl_start, excl, width, head, nxt, seen,
+                                                cap, r2_hard, REST)
             if not ok:
                 return 0.0, False
             u_old, ok = _pair_energy_with_fixed(i, pos[i, 0], pos[i, 1], pos[i, 2], lo, hi, pos, types,
-                                                kinds, params, tables, excl_start, excl, width, head, nxt, near)
+                                                kinds, params, tables, excl_start, excl, width, head, nxt, seen,
+                                                cap, r2_hard, REST)
             d_energy += u_new - u_old
+    d_bonded, ok = _bonded_change(lo, hi, trial, pos, ff, bond_start, bond_of, angle_start, angle_of)
+    return d_energy + d_bonded, ok
+
+
+@njit(cache=True)
+def _bonded_change(lo, hi, trial, pos, ff, bond_start, bond_of, angle_start, angle_of):
+    """Change of the bond and angle energy if beads ``lo .. hi-1`` moved to ``trial``; ``(change, ok)``."""
     u_new, ok = _bonded_energy(lo, hi, pos, trial, True, ff, bond_start, bond_of, angle_start, angle_of)
     if not ok:
         return 0.0, False
     u_old, _ = _bonded_energy(lo, hi, pos, trial, False, ff, bond_start, bond_of, angle_start, angle_of)
-    return d_energy + u_new - u_old, True
+    return u_new - u_old, True
+
+
+@njit(cache=True)
+def tree_energy_change(lo, hi, pivot, trial, pos, types, ff, excl_start, excl, bond_start, bond_of, angle_start,
+                       angle_of, reach, cap, r2_hard, g, origin, tree):
+    """:func:`trial_energy_change` of a pivot move (``trial`` = ``pos`` of the block mapped by ``g`` about bead
+    ``pivot``), with the pair sums taken over the bounding-sphere tree (:mod:`beadsim.kernels.spheretree`).
+
+    ``reach`` is the largest pair cutoff (sigma), ``origin`` float64 (3,) scratch and ``tree`` as
+    :func:`~beadsim.kernels.spheretree.block_pair_energy`; the other arguments as :func:`trial_energy_change`.
+    """
+    for d in range(3):
+        origin[d] = pos[pivot, d]
+    u_new, ok = block_pair_energy(lo, hi, trial, True, g, origin, pos, types, ff, excl_start, excl, reach, cap,
+                                  r2_hard, False, math.inf, tree)
+    if not ok:
+        return 0.0, False
+    u_old, _ = block_pair_energy(lo, hi, pos, False, g, origin, pos, types, ff, excl_start, excl, reach, cap,
+                                 r2_hard, False, math.inf, tree)
+    d_bonded, ok = _bonded_change(lo, hi, trial, pos, ff, bond_start, bond_of, angle_start, angle_of)
+    return u_new - u_old + d_bonded, ok
+
+
+@njit(cache=True)
+def _overlap_sum(lo, hi, first, coords, mapped, pos, types, ff, excl_start, excl, width, head, nxt, seen, cap, limit,
+                 use_tree, g, origin, tree):
+    """Overlap energy of beads ``lo .. hi-1`` placed at ``coords`` with the beads outside; ``inf`` as soon as it
+    exceeds ``limit`` or a pair is impossible. Summed over the tree (``use_tree``; ``coords`` mapped as
+    :func:`~beadsim.kernels.spheretree.block_pair_energy`) or through the cells from bead ``first`` on."""
+    if use_tree:
+        total, ok = block_pair_energy(lo, hi, coords, mapped, g, origin, pos, types, ff, excl_start, excl, width,
+                                      cap, width * width, True, limit, tree)
+        return total if ok else math.inf
+    step = 1 if first == lo else -1
+    total = 0.0
+    i = first
+    for _ in range(hi - lo):
+        u, ok = _pair_energy_with_fixed(i, coords[i, 0], coords[i, 1], coords[i, 2], lo, hi, pos, types, ff[0],
+                                        ff[1], ff[2], excl_start, excl, width, head, nxt, seen, cap, width * width,
+                                        OVERLAP)
+        total += u
+        if not ok or total > limit:
+            return math.inf
+        i += step
+    return total
+
+
+@njit(cache=True)
+def overlap_free(pos, types, ff, excl_start, excl, width, head, nxt, seen, cap):
+    """True if no pair of ``pos`` has a pair energy above ``cap`` within the overlap radius ``width``."""
+    n = pos.shape[0]
+    for i in range(n):
+        u, ok = _pair_energy_with_fixed(i, pos[i, 0], pos[i, 1], pos[i, 2], i, i + 1, pos, types, ff[0], ff[1],
+                                        ff[2], excl_start, excl, width, head, nxt, seen, cap, width * width, OVERLAP)
+        if u > 0.0 or not ok:
+            return False
+    return True
+
+
+@njit(cache=True)
+def overlap_barrier(lo, hi, first, trial, pos, types, ff, excl_start, excl, width, head, nxt, seen, cap, limit,
+                    clean, use_tree, g, origin, tree):
+    """Positive part of the overlap energy change if beads ``lo .. hi-1`` moved; ``inf`` once it exceeds ``limit``.
+
+    The new overlap sum is taken bead by bead from ``first`` (``lo`` or ``hi - 1``: the end next to the
+    pivot, where a rotated block meets the rest soonest). Overlap parts are never negative, so the
+    scan stops as soon as the sum so far, less the old sum, exceeds ``limit``, and a new sum of zero
+    has no positive change whatever the old one was. The old sum is zero when the current state has no
+    overlapping pair at all (``clean``), and is otherwise taken in full when the new sum is positive.
+
+    Parameters
+    ----------
+    lo, hi, first : int
+        Moved beads and the first one scanned.
+    trial, pos, types, ff, excl_start, excl, seen
+        As :func:`trial_energy_change`.
+    width : float
+        Edge of the overlap cells, sigma: the overlap radius (pairs closer than it may have overlap parts).
+    head, nxt : int64 arrays
+        Hashed cells of ``pos`` of edge ``width``.
+    cap : float
+        Pair energy above which a pair overlaps, epsilon.
+    limit : float
+        Largest barrier that may still be accepted, epsilon.
+    clean : bool
+        True if no pair of the current state overlaps (then the old sum is zero).
+    use_tree : bool
+        Sum over the bounding-sphere tree (a pivot: ``trial`` is ``pos`` mapped by ``g`` about ``origin``,
+        float64 (3, 3) and (3,)) instead of through the cells.
+    g, origin, tree
+        As :func:`~beadsim.kernels.spheretree.block_pair_energy`.
+
+    Returns
+    -------
+    float
+        ``max(0, new - old)``, or ``inf`` when the change exceeds ``limit`` or the trial state is impossible.
+    """
+    new = _overlap_sum(lo, hi, first, trial, True, pos, types, ff, excl_start, excl, width, head, nxt, seen, cap,
+                       limit, use_tree, g, origin, tree)
+    if new == 0.0 or clean:
+        return new
+    old = _overlap_sum(lo, hi, lo, pos, False, pos, types, ff, excl_start, excl, width, head, nxt, seen, cap,
+                       math.inf, use_tree, g, origin, tree)
+    if old > 0.0:
+        new = _overlap_sum(lo, hi, first, trial, True, pos, types, ff, excl_start, excl, width, head, nxt, seen, cap,
+                           limit + old, use_tree, g, origin, tree)
+    return max(new - old, 0.0)
 
 
 @njit(cache=True)
@@ -363,9 +501,15 @@ def propose(kind, seed, move, max_angle, pos, candidates, chain_lo, chain_hi, tr
 
 @njit(cache=True)
 def metropolis_moves(kind, n_moves, first_move, seed, temperature, max_angle, pos, types, ff, excl_start, excl,
-                     bond_start, bond_of, angle_start, angle_of, candidates, chain_lo, chain_hi, width, head,
-                     nxt, prv, bucket, trial, counts):
-    """Attempt ``n_moves`` moves of one kind, accepting each by the Metropolis rule; update ``pos`` in place.
+                     bond_start, bond_of, angle_start, angle_of, candidates, chain_lo, chain_hi, cells,
+                     overlap_cells, cap, tree, tree_min_beads, trial, seen, counts):
+    """Attempt ``n_moves`` moves of one kind, each accepted by the factorized Metropolis rule; update ``pos``.
+
+    A move is accepted when the uniform ``v`` of the move is below
+    ``min(1, exp(-dO / kT)) * min(1, exp(-dR / kT))``, dO the change of the overlap energy and dR that
+    of the rest (module notes); the overlap change is found first, and a move whose overlap factor alone
+    falls below ``v`` is rejected before the rest is summed. Without overlap cells (edge 0) dO = 0 and
+    this is the plain Metropolis rule.
 
     Parameters
     ----------
@@ -383,31 +527,92 @@ def metropolis_moves(kind, n_moves, first_move, seed, temperature, max_angle, po
         As :func:`trial_energy_change`; ``pos`` is updated in place.
     candidates, chain_lo, chain_hi
         As :func:`propose`.
-    width, head, nxt, prv, bucket
-        Hashed cells of ``pos`` (:func:`build_cells`), kept current as moves are accepted.
+    cells, overlap_cells : tuple (width, head, nxt, prv, bucket)
+        Hashed cells of ``pos`` (:func:`build_cells`) of edge the pair cutoff and the overlap radius
+        (width 0: none), kept current as moves are accepted.
+    cap : float
+        Pair energy above which a pair overlaps, epsilon.
+    tree : tuple
+        Bounding-sphere tree of ``pos`` (:func:`~beadsim.kernels.spheretree.block_pair_energy`), kept
+        current as moves are accepted.
+    tree_min_beads : int
+        Pivots of at least this many beads sum their pairs over the tree, smaller moves through the cells
+        (both give the same pairs; set it above the bead count to leave the tree out).
     trial : float64 (n, 3)
         Scratch.
+    seen : int64 (n_buckets + 1,)
+        Scratch of the bucket scans (:func:`trial_energy_change`).
     counts : int64 (2,)
         Incremented in place: (attempted, accepted).
     """
     g = np.empty((3, 3))
-    near = np.empty(27, dtype=np.int64)
-    n_buckets = head.shape[0]
+    origin = np.empty(3)
+    width, head, nxt, prv, bucket = cells
+    o_width, o_head, o_nxt, o_prv, o_bucket = overlap_cells
+    r2_hard = o_width * o_width
+    clean = o_width > 0.0 and overlap_free(pos, types, ff, excl_start, excl, o_width, o_head, o_nxt, seen, cap)
     for k in range(n_moves):
         move = first_move + k
         counts[0] += 1
         lo, hi = propose(kind, seed, move, max_angle, pos, candidates, chain_lo, chain_hi, trial, g)
         if hi <= lo:
             continue
-        d_energy, ok = trial_energy_change(lo, hi, trial, pos, types, ff, excl_start, excl, bond_start, bond_of,
-                                           angle_start, angle_of, width, head, nxt, near)
+        v = uniform_open(seed, UNIFORMS_PER_MOVE * move + 6)
+        below = lo == chain_lo[lo]  # the block lies below its pivot bead
+        pivot = hi if below else lo - 1
+        use_tree = kind == PIVOT and tree_min_beads <= hi - lo
+        for d in range(3):
+            origin[d] = pos[pivot, d]
+        d_overlap = 0.0
+        if o_width > 0.0:
+            d_overlap = overlap_barrier(lo, hi, hi - 1 if below else lo, trial, pos, types, ff, excl_start, excl,
+                                        o_width, o_head, o_nxt, seen, cap, -temperature * math.log(v), clean,
+                                        use_tree, g, origin, tree)
+            if d_overlap == math.inf:
+                continue
+        if use_tree:
+            d_rest, ok = tree_energy_change(lo, hi, pivot, trial, pos, types, ff, excl_start, excl, bond_start,
+                                            bond_of, angle_start, angle_of, width, cap, r2_hard, g, origin, tree)
+        else:
+            d_rest, ok = trial_energy_change(lo, hi, trial, pos, types, ff, excl_start, excl, bond_start, bond_of,
+                                             angle_start, angle_of, width, head, nxt, seen, cap, r2_hard)
         if not ok:
             continue
-        if d_energy > 0.0 and uniform_open(seed, UNIFORMS_PER_MOVE * move + 6) >= math.exp(-d_energy / temperature):
+        barrier = d_overlap + max(d_rest, 0.0)
+        if barrier > 0.0 and v >= math.exp(-barrier / temperature):
             continue
         counts[1] += 1
+        clean = clean and d_overlap == 0.0  # a positive barrier from a clean state means a new overlapping pair
         for i in range(lo, hi):
             for d in range(3):
                 pos[i, d] = trial[i, d]
             if width > 0.0:
-                _relink(i, _bucket_of(pos[i, 0], pos[i, 1], pos[i, 2], width, n_buckets), head, nxt, prv, bucket)
+                _relink(i, _bucket_of(pos[i, 0], pos[i, 1], pos[i, 2], width, head.shape[0]), head, nxt, prv,
+                        bucket)
+            if o_width > 0.0:
+                _relink(i, _bucket_of(pos[i, 0], pos[i, 1], pos[i, 2], o_width, o_head.shape[0]), o_head, o_nxt,
+                        o_prv, o_bucket)
+        if tree_min_beads < pos.shape[0]:
+            update_spheres(pos, tree[0], tree[1], tree[2], tree[3], tree[4], tree[5], lo, hi, g, origin,
+                           kind == PIVOT)
+
+
+@njit(cache=True)
+def overlap_radius(kinds, params, tables, cap, r_max, n_grid):
+    """Overlap radius for :func:`metropolis_moves`: one grid step beyond the largest distance at which a pair
+    energy exceeds ``cap`` or leaves its table (0.0 if none does).
+
+    Any radius keeps the factorized rule exact (the overlap parts are defined with it); this one makes
+    the overlap cells as small as they can be while catching the overlaps of the potentials on a grid of
+    ``n_grid`` distances in (0, ``r_max``] sigma.
+    """
+    step = r_max / n_grid
+    for k in range(n_grid, 0, -1):
+        r = k * step
+        for a in range(kinds.shape[0]):
+            for b in range(kinds.shape[1]):
+                if kinds[a, b] != 0:
+                    u, _, inside = pair_energy_force(kinds[a, b], params[a, b], r * r, tables)
+                    if u > cap or not inside:
+                        return min(r + step, r_max)
+    return 0.0

@@ -18,6 +18,7 @@ from beadsim.engine.moves_reference import (
     interior_beads,
     reference_energy,
     reference_moves,
+    reference_split_energy,
 )
 from beadsim.kernels import pivot as KP
 
@@ -44,43 +45,86 @@ def _sampler(system, ff, kT=1.0, **moves):
     return sim, HybridSampler(sim, **({"segment_steps": 100} | moves))
 
 
+def _trial_changes(sim, s, kind, move, g, origin, cap, r_hard):
+    """Overlap barrier and rest change of one trial move from the compiled kernels: through the cells and,
+    for a pivot, over the bounding-sphere tree. Returns (lo, hi, barrier, rest by cells, rest by tree)."""
+    pos = sim.system.positions
+    c, o = s.cells, s.overlap_cells
+    args = (pos, sim.system.types, sim.compiled.arrays, sim.compiled.excl_start, sim.compiled.excl)
+    lo, hi = KP.propose(kind, s.seed, move, s.max_angle, pos, s.candidates, s.chain_lo, s.chain_hi, s.trial, g)
+    below = lo == s.chain_lo[lo]
+    pivot = hi if below else lo - 1
+    origin[:] = pos[pivot]
+    rest_cells, ok = KP.trial_energy_change(lo, hi, s.trial, *args, s.bond_start, s.bond_of, s.angle_start,
+                                            s.angle_of, c.width, c.head, c.nxt, s.seen, cap, r_hard ** 2)
+    assert ok
+    rest_tree = None
+    if kind == KP.PIVOT:
+        rest_tree, ok = KP.tree_energy_change(lo, hi, pivot, s.trial, *args, s.bond_start, s.bond_of, s.angle_start,
+                                              s.angle_of, c.width, cap, r_hard ** 2, g, origin, s.tree.arrays())
+        assert ok
+    barrier = 0.0
+    if r_hard > 0:
+        barrier = KP.overlap_barrier(lo, hi, hi - 1 if below else lo, s.trial, *args, o.width, o.head, o.nxt, s.seen,
+                                     cap, math.inf, False, kind == KP.PIVOT, g, origin, s.tree.arrays())
+    return lo, hi, barrier, rest_cells, rest_tree
+
+
+@pytest.mark.parametrize("overlap_energy", [None, 0.5], ids=["plain", "split"])
 @pytest.mark.parametrize("kind", [KP.PIVOT, KP.CRANKSHAFT], ids=["pivot", "crankshaft"])
 @pytest.mark.parametrize("case", range(4), ids=[c[0] for c in _systems()])
-def test_energy_change_equals_full_recomputation(case, kind):
-    """Kernel dU of 40 trial moves equals E(trial) - E(current) recomputed in full by the NumPy/cKDTree
-    reference (beadsim.engine.reference), to 1e-10 relative to max(|dU|, 1 epsilon)."""
+def test_energy_changes_equal_full_recomputation(case, kind, overlap_energy):
+    """For 40 trial moves, the kernels' energy changes equal the NumPy reference's, recomputed in full from
+    every pair (cKDTree; beadsim.engine.moves_reference), to 1e-10 relative to max(|dU|, 1 epsilon):
+    the full dU (plain rule), or the positive part of the overlap change and the rest change of the split
+    at a cap of 0.5 kT, where many pairs overlap. The rest change is checked both through the cells and,
+    for pivots, over the bounding-sphere tree."""
     name, system, ff = _systems()[case]
-    sim, s = _sampler(system, ff)
+    sim, s = _sampler(system, ff, overlap_energy=overlap_energy)
     pos = sim.system.positions
-    KP.build_cells(pos, s.width, s.head, s.nxt, s.prv, s.bucket)
-    e0 = reference_energy(sim.system, ff)
-    g = np.empty((3, 3))
+    s._set_overlap_radius(1.0)
+    cap, r_hard = s._cap(1.0), s.overlap_cells.width
+    for cells in (s.cells, s.overlap_cells):
+        cells.build(pos)
+    s.tree.build(pos)
+    start = (0.0, reference_energy(sim.system, ff)) if overlap_energy is None else \
+        reference_split_energy(sim.system, ff, cap, r_hard)
+    g, origin = np.empty((3, 3)), np.empty(3)
     trial_system = sim.system.copy()
+    checked = 0
     for move in range(40):
-        lo, hi = KP.propose(kind, s.seed, move, s.max_angle, pos, s.candidates, s.chain_lo, s.chain_hi, s.trial, g)
-        d_u, ok = KP.trial_energy_change(lo, hi, s.trial, pos, sim.system.types, sim.compiled.arrays,
-                                         sim.compiled.excl_start, sim.compiled.excl, s.bond_start, s.bond_of,
-                                         s.angle_start, s.angle_of, s.width, s.head, s.nxt,
-                                         np.empty(27, dtype=np.int64))
+        lo, hi, barrier, rest_cells, rest_tree = _trial_changes(sim, s, kind, move, g, origin, cap, r_hard)
         trial_system.positions[:] = pos
         trial_system.positions[lo:hi] = s.trial[lo:hi]
-        expected = reference_energy(trial_system, ff) - e0
-        assert ok, (name, move)
-        assert abs(d_u - expected) <= 1e-10 * max(abs(expected), 1.0), (name, move, d_u, expected)
+        end = (0.0, reference_energy(trial_system, ff)) if overlap_energy is None else \
+            reference_split_energy(trial_system, ff, cap, r_hard)
+        d_overlap, d_rest = end[0] - start[0], end[1] - start[1]
+        checked += d_overlap > 0
+        for value, expected in ((barrier, max(d_overlap, 0.0)), (rest_cells, d_rest), (rest_tree, d_rest)):
+            if value is not None:
+                assert abs(value - expected) <= 1e-10 * max(abs(expected), 1.0), (name, move, value, expected)
+    if overlap_energy is not None and case != 0:
+        assert checked > 0  # the split was exercised
 
 
+@pytest.mark.parametrize("overlap_energy, tree_min_beads", [(None, None), (0.5, 2), (8.0, 2)],
+                         ids=["plain_cells", "split_tree_low_cap", "split_tree_default_cap"])
 @pytest.mark.parametrize("kind", [KP.PIVOT, KP.CRANKSHAFT], ids=["pivot", "crankshaft"])
-def test_metropolis_kernel_matches_numpy_twin(kind):
-    """300 moves on a 20-bead LJ-2.5 chain with bending at kT = 1.5 (seed 7): the compiled kernel
-    accepts the same moves as the NumPy twin (scipy Rotation, full energy recomputation) and ends at the
-    same positions to 1e-9 sigma."""
-    system = bs.build_chains(20, seed=9, min_distance=0.85)
+def test_metropolis_kernel_matches_numpy_twin(kind, overlap_energy, tree_min_beads):
+    """300 moves on a 40-bead LJ-2.5 chain with bending at kT = 1.5 (seed 7): the compiled kernel accepts
+    the same moves as the NumPy twin (scipy Rotation, energies recomputed in full from every pair) and ends
+    at the same positions to 1e-9 sigma; with the plain rule, and with the factorized rule at caps of 0.5
+    and 8 kT with every pivot of 2 or more beads summed over the tree (early stops, lazy old sums and the
+    tree's upkeep after accepted moves all take part)."""
+    system = bs.build_chains(40, seed=9, min_distance=0.85)
     ff = bs.ForceField(bs.LennardJones(cutoff=2.5), bs.FENE(), bending=bs.Bending(1.0))
-    sim, s = _sampler(system, ff, kT=1.5, pivot_moves=1, crankshaft_moves=1, crankshaft_max_angle=90.0)
+    sim, s = _sampler(system, ff, kT=1.5, pivot_moves=1, crankshaft_moves=1, crankshaft_max_angle=90.0,
+                      overlap_energy=overlap_energy, tree_min_beads=tree_min_beads)
     start = sim.system.copy()
     name = "pivot" if kind == KP.PIVOT else "crankshaft"
     s.monte_carlo(**{f"{k}_moves": (300 if k == name else 0) for k in ("pivot", "crankshaft")})
-    expected, accepted, _ = reference_moves(start, ff, kind, 300, 0, s.seed, 1.5, s.max_angle)
+    split = None if overlap_energy is None else (s._cap(1.5), s.overlap_cells.width)
+    expected, accepted, _ = reference_moves(start, ff, kind, 300, 0, s.seed, 1.5, s.max_angle, split=split)
     assert s.counts[name][0] == 300
     assert s.counts[name][1] == accepted
     assert 0 < accepted < 300
