@@ -65,11 +65,31 @@ def _cmd_bench(args):
 
     from .bench import format_table, run_benchmarks
 
+    if args.statics:
+        return _statics_bench(args)
     if not args.quiet:
         print("beadsim: benchmark systems A-F (compiling kernels on first use); this takes minutes", file=sys.stderr)
     log = (lambda line: None) if args.quiet else (lambda line: print(f"beadsim: {line}", file=sys.stderr))
     report = run_benchmarks(quick=args.quick, threads=args.threads, log=log)
     print(format_table(report))
+    if args.json:
+        Path(args.json).write_text(json.dumps(report, indent=2) + "\n", encoding="utf-8")
+        print(f"results in {args.json}")
+    return 0
+
+
+def _statics_bench(args):
+    import json
+
+    from .statics_bench import format_statics, run_statics_benchmark
+
+    if not args.quiet:
+        print("beadsim: statics benchmark (one thread; compiling kernels on first use); this takes "
+              f"about {len(args.sizes) * (3 * args.cpu_seconds + 60) / 60:.0f} minutes or more", file=sys.stderr)
+    log = (lambda line: None) if args.quiet else (lambda line: print(f"beadsim: {line}", file=sys.stderr))
+    report = run_statics_benchmark(sizes=args.sizes, temperature=args.temperature, cpu_seconds=args.cpu_seconds,
+                                   log=log)
+    print(format_statics(report))
     if args.json:
         Path(args.json).write_text(json.dumps(report, indent=2) + "\n", encoding="utf-8")
         print(f"results in {args.json}")
@@ -134,6 +154,12 @@ def build_parser():
     p.add_argument("--quick", action="store_true", help="fewer repeats; size series up to 64,000 beads")
     p.add_argument("--threads", type=int, help="kernel threads (default: all numba was started with)")
     p.add_argument("--quiet", action="store_true", help="only the table")
+    p.add_argument("--statics", action="store_true", help="instead: independent Rg^2 samples per CPU-second of "
+                   "one attractive chain, hybrid sampling (now and with the previous moves) and dynamics")
+    p.add_argument("--sizes", type=int, nargs="+", default=[256, 512, 1024], help="chain lengths (--statics)")
+    p.add_argument("--temperature", type=float, default=3.3, help="kT (--statics; default 3.3)")
+    p.add_argument("--cpu-seconds", type=float, default=120.0, help="production CPU budget per sampler and "
+                   "length (--statics; default 120)")
     p.set_defaults(func=_cmd_bench)
 
     p = sub.add_parser("vet", help="check a model before production: timestep, forces, tables, bond crossing, "

@@ -3,12 +3,13 @@
 Every ``segment_steps`` integrator steps (counted on the simulation's step
 count, so resumed runs meet the same boundaries) the sampler attempts
 ``pivot_moves`` pivot moves and ``crankshaft_moves`` crankshaft moves
-(:mod:`beadsim.kernels.pivot`), each accepted by the Metropolis rule on the full
-potential at the thermostat temperature. Each move leaves the Boltzmann
-distribution of positions invariant and the Langevin steps leave the joint
-distribution of positions and velocities invariant; velocities are independent
-of positions in that distribution, so they are kept as they are across a move.
-After the moves the Verlet list is rebuilt and the forces recomputed.
+(:mod:`beadsim.kernels.pivot`), each accepted by the factorized Metropolis rule
+on the full potential at the thermostat temperature (or the plain rule, with
+``overlap_energy=None``). Each move leaves the Boltzmann distribution of
+positions invariant and the Langevin steps leave the joint distribution of
+positions and velocities invariant; velocities are independent of positions in
+that distribution, so they are kept as they are across a move. After the moves
+the Verlet list is rebuilt and the forces recomputed.
 
 Tuned pivot count: with ``accepted_pivots`` set, the pivot moves per round are
 chosen once, at the first round at or after step ``tune_until`` (the end of
@@ -19,15 +20,14 @@ equilibration), from the pivot acceptance ``a`` measured over the rounds after
 use the fixed count, so production is an ordinary Markov chain with a
 Boltzmann-invariant kernel; the adaptation touches equilibration only.
 
-Why two branches (measured in analysis/statics_efficiency.md, 256-bead LJ chains):
-per round, the decorrelation rate of Rg grows about linearly with the pivot count,
-``1/g = alpha + beta P`` with ``beta`` proportional to the acceptance, and the cost
-is ``c0 + c_p P``. The independent samples per CPU-second, ``(alpha + beta P) /
-(c0 + c_p P)``, are then monotonic in P: more pivots pay off when ``beta c0 > alpha
-c_p``, fewer otherwise. Near theta (acceptance 17 %) the rate rose from 2.5 to 5.7
-per CPU-second between 5 and 50 pivots per 20 steps; in the globule (2 %) it fell
-from 0.46 to 0.33, and the dynamics-heavy mix of 2 pivots per 20 steps was best.
-Both fits put the break-even acceptance at 3-4.5 %.
+Why two branches (measured in analysis/statics_speed.md, LJ chains of 512 beads,
+rounds of 20 steps): per round, the decorrelation rate of Rg grows with the pivot
+count P, ``1/g = alpha + beta P`` with ``beta`` proportional to the acceptance,
+and the cost is ``c0 + c_p P``; the independent samples per CPU-second,
+``(alpha + beta P) / (c0 + c_p P)``, are then monotonic in P. Near theta
+(acceptance 16 %) they rose about fourfold from 100 to 300-1,000 pivots per
+round; in the globule (1.4 %) they were the same within their errors from 20 to
+1,000 pivots, so the cheapest round, with few pivots, is kept there.
 """
 
 import logging
@@ -58,10 +58,10 @@ the sampling and a few pivots still move chain ends (the fastest mix measured th
 MIN_TUNED_PIVOTS = 5
 """Fewest pivot moves per round a tuned count may take (our choice: keeps chain-scale moves in every round)."""
 
-MAX_TUNED_PIVOTS = 64
-"""Most pivot moves per round a tuned count may take (our choice: a little above the 50 per 20 steps measured
-fastest near theta at N = 256; near the collapse, where 4-10 % of pivots are accepted, an uncapped count
-of 80-200 made those points the slowest of a study)."""
+MAX_TUNED_PIVOTS = 400
+"""Most pivot moves per round a tuned count may take (our choice: a little above the 300 per 20 steps measured
+fastest at N = 1,024 near theta, where 1,000 were half as fast; near the collapse, where 4-10 % of pivots are
+accepted, an uncapped count would make those points the slowest of a study)."""
 
 OVERLAP_GRID = 4096
 """Distances in (0, cutoff] at which the pair potentials are evaluated to find the overlap radius (our choice:

@@ -15,18 +15,41 @@ Moves
   (symmetric: the reverse move is the opposite angle).
 
 Which side a pivot moves depends only on the chosen bead, so the choice keeps
-the proposal symmetric; with it the Metropolis rule ``accept with probability
-min(1, exp(-dU / kT))`` leaves the Boltzmann distribution of positions
-invariant (Metropolis et al., J. Chem. Phys. 21, 1087, 1953).
+the proposal symmetric.
+
+Acceptance: the factorized Metropolis rule
+------------------------------------------
+Each pair energy ``u`` is split at a cap ``c``: a pair closer than the overlap
+radius with ``u > c`` has the overlap part ``u - c`` and the rest ``c``; any
+other pair has no overlap part and the rest ``u``. The bonds and angles belong
+to the rest. A move changing the overlap energy by ``dO`` and the rest by ``dR``
+is accepted with probability ``min(1, exp(-dO / kT)) min(1, exp(-dR / kT))``.
+The ratio of forward to reverse probabilities is ``exp(-(dO + dR) / kT)``, so
+detailed balance with the Boltzmann distribution holds for any split (the
+factorized Metropolis filter: Michel, Kapfer and Krauth, J. Chem. Phys. 140,
+054116, 2014; the Metropolis rule itself: Metropolis et al., J. Chem. Phys. 21,
+1087, 1953). With no overlap radius (``dO = 0``) it is the plain Metropolis rule.
+
+Why: in an attractive chain most pivots are rejected because the rotated block
+lands inside the rest of the chain. Overlap parts are never negative, so the
+overlap change is summed first, from the pivot outwards, and the move is
+rejected as soon as the overlap factor alone falls below the move's uniform
+number, usually after a few beads; only the moves that pass pay for the rest.
+The cap (several kT) makes the two rules disagree only for moves that create an
+overlapping pair while lowering the rest by as much, which are rare.
 
 Energy change
 -------------
 Only terms joining a moved bead to a fixed one change: the moved beads' pairs
-with every fixed bead (found through hashed cells at least one pair cutoff
-wide, kept up to date as moves are accepted, so a move costs O(moved beads)
-and never O(N^2)), and the bonds and angles with members on both sides (for a
-pivot, the bending angle at the pivot). Pairs inside the moved block keep
-their distances under a rigid map and are not evaluated.
+with every fixed bead, and the bonds and angles with members on both sides
+(for a pivot, the bending angle at the pivot). Pairs inside the moved block
+keep their distances under a rigid map and are not evaluated. Small moves sum
+the pairs bead by bead through hashed cells at least one cutoff wide (overlap
+parts through cells one overlap radius wide), kept current as moves are
+accepted, so a move costs O(moved beads) and never O(N^2). Pivots of many beads
+sum them over a bounding-sphere tree of chain segments
+(:mod:`beadsim.kernels.spheretree`), which skips the parts of the block that
+are far from every fixed bead. Both give the same pairs.
 
 Random numbers
 --------------

@@ -1,0 +1,203 @@
+"""Statics benchmark: independent Rg^2 samples per CPU-second of the samplers of one attractive chain.
+
+The model is the bundled study's (``inputs/lj_chain_model.toml``): one FENE chain (k = 30, R0 = 1.5)
+whose beads attract through Lennard-Jones cut and shifted at 2.5 sigma, BAOAB at dt = 0.005 tau and
+friction 0.5 / tau, one thread. For each chain length the chain is built, minimised and equilibrated
+once with hybrid sampling; every sampler then starts from that state, warms up (the tuned sampler fixes
+its pivot count there) and runs for a fixed CPU budget, recording Rg^2 every round of
+:data:`SEGMENT_STEPS` steps. Samplers:
+
+* ``hybrid``: what a study uses (:data:`beadsim.studies.sweep.STUDY_HYBRID`): pivot count tuned to the
+  acceptance, factorized Metropolis rule, tree pair sums;
+* ``hybrid, previous moves``: 100 pivots per round, the plain Metropolis rule, every pair through cells
+  (the move settings before the factorized rule and the tree), side by side for the ratio;
+* ``dynamics``: Langevin dynamics alone.
+
+Figure of merit (:mod:`beadsim.analysis.efficiency`): rounds / (g x CPU seconds), g the statistical
+inefficiency of the Rg^2 series in rounds, taken as the larger of the autocorrelation estimate
+(:func:`~beadsim.analysis.stats.statistical_inefficiency`) and the blocking estimate
+(:func:`~beadsim.analysis.stats.blocking`), so the rate errs low. A run shorter than
+:data:`RESOLVED_RUNS` g cannot resolve g: its rate is flagged as an upper bound.
+"""
+
+import math
+import time
+
+import numpy as np
+
+from .analysis.stats import blocking, statistical_inefficiency
+from .engine.hybrid import HybridSampler
+from .engine.integrators import BAOABLangevin
+from .engine.simulation import Simulation
+from .engine.threads import set_threads
+from .model.build import build_chains
+from .model.potentials import FENE, ForceField, LennardJones
+
+SEGMENT_STEPS = 20
+"""Integrator steps per round (and between two Rg^2 samples) for every sampler."""
+
+RESOLVED_RUNS = 50
+"""A run of at least this many times g resolves g (common practice); shorter ones give upper bounds."""
+
+PREVIOUS_MOVES = {"pivot_moves": 100, "overlap_energy": None, "tree_min_beads": None}
+"""The pivot settings of hybrid runs before the factorized rule and the tree (20 steps and 100 pivots per
+segment), kept for the side-by-side ratio."""
+
+
+def _simulation(system, temperature, seed):
+    ff = ForceField(LennardJones(cutoff=2.5), FENE())
+    return Simulation(system, ff, BAOABLangevin(0.005, temperature=temperature, friction=0.5), seed=seed)
+
+
+def _sampler(sim, name, warmup_steps):
+    from .studies.sweep import STUDY_HYBRID
+
+    if name == "dynamics":
+        return None
+    if name == "hybrid":
+        return HybridSampler(sim, segment_steps=SEGMENT_STEPS, pivot_moves=STUDY_HYBRID["pivot_moves_per_segment"],
+                             accepted_pivots=STUDY_HYBRID["accepted_pivots_per_segment"], tune_until=warmup_steps)
+    return HybridSampler(sim, segment_steps=SEGMENT_STEPS, **PREVIOUS_MOVES)
+
+
+def _rg2(x):
+    return float(np.mean(np.sum((x - x.mean(axis=0)) ** 2, axis=1)))
+
+
+def equilibrated_chain(n_beads, temperature, rounds, seed=1):
+    """A chain of ``n_beads`` built, minimised and run for ``rounds`` rounds of tuned hybrid sampling.
+
+    Returns
+    -------
+    beadsim.model.system.System
+    """
+    sim = _simulation(build_chains(n_beads, seed=seed), temperature, seed)
+    sim.minimize()
+    _sampler(sim, "hybrid", rounds * SEGMENT_STEPS // 2)
+    sim.run(rounds * SEGMENT_STEPS)
+    return sim.system.copy()
+
+
+def measure_sampler(system, temperature, name, cpu_seconds, warmup_rounds, seed=2):
+    """Independent Rg^2 samples per CPU-second of one sampler started from ``system``.
+
+    Parameters
+    ----------
+    system : beadsim.model.system.System
+        An equilibrated chain (positions and velocities are used, not changed).
+    temperature : float
+        kT, epsilon.
+    name : str
+        ``"hybrid"``, ``"hybrid, previous moves"`` or ``"dynamics"``.
+    cpu_seconds : float
+        CPU budget of the production part.
+    warmup_rounds : int
+        Rounds run first and not counted.
+
+    Returns
+    -------
+    dict
+        rounds, cpu_seconds, pivot acceptance and pivots per round, g (both estimates, rounds),
+        independent samples, samples per CPU-second, ``upper_bound`` and mean Rg^2 with its error.
+    """
+    sim = _simulation(system.copy(), temperature, seed)
+    sampler = _sampler(sim, name, warmup_rounds * SEGMENT_STEPS)
+    sim.run(warmup_rounds * SEGMENT_STEPS)
+    if sampler is not None:
+        for counts in sampler.counts.values():
+            counts[:] = 0
+    series = []
+    x = sim.system.positions
+    started = time.process_time()
+    while time.process_time() - started < cpu_seconds:
+        for _ in range(20):
+            sim.run(SEGMENT_STEPS)
+            series.append(_rg2(x))
+    cpu = time.process_time() - started
+    series = np.array(series)
+    g_acf = statistical_inefficiency(series)
+    blocks = blocking(series)
+    g_blk = None if blocks.error is None else float(blocks.error ** 2 * series.size / series.var())
+    g = max(g_acf, g_blk or 0.0, 1.0)
+    out = {"sampler": name, "rounds": int(series.size), "cpu_seconds": round(cpu, 2),
+           "ms_per_round": round(1e3 * cpu / series.size, 3),
+           "g_autocorrelation": round(float(g_acf), 2), "g_blocking": g_blk and round(g_blk, 2),
+           "independent_samples": round(series.size / g, 1),
+           "per_cpu_second": series.size / g / cpu,
+           "upper_bound": bool(series.size < RESOLVED_RUNS * g or g_blk is None),
+           "rg2_mean": float(series.mean()), "rg2_error": float(series.std(ddof=1) * math.sqrt(g / series.size))}
+    if sampler is not None:
+        pivots = sampler.acceptance()["pivot"]
+        out.update(pivot_acceptance=pivots["rate"], pivots_per_round=int(sampler.moves["pivot"]))
+    return out
+
+
+def cost_exponent(sizes, rates):
+    """x in (independent samples per CPU-second) ~ N^-x: least squares on the logarithms."""
+    return float(-np.polyfit(np.log(sizes), np.log(rates), 1)[0])
+
+
+def run_statics_benchmark(sizes=(256, 512, 1024), temperature=3.3, cpu_seconds=120.0,
+                          samplers=("hybrid", "hybrid, previous moves", "dynamics"), log=print):
+    """The statics benchmark at each chain length; JSON-ready dict.
+
+    Parameters
+    ----------
+    sizes : sequence of int
+        Chain lengths.
+    temperature : float
+        kT, epsilon (3.3: a little above the model's theta temperature, beadsim/data/theta_points.toml).
+    cpu_seconds : float
+        Production CPU budget of each sampler at each length.
+    samplers : sequence of str
+    log : callable
+        Receives one line per measurement.
+    """
+    from .bench import machine_description
+
+    set_threads(1)
+    results = []
+    for n in sizes:
+        equilibration = max(2000, 4 * n)
+        log(f"statics N = {n}: equilibrating ({equilibration} rounds of hybrid sampling)")
+        system = equilibrated_chain(n, temperature, equilibration)
+        for name in samplers:
+            entry = dict(measure_sampler(system, temperature, name, cpu_seconds, warmup_rounds=500), n_beads=n)
+            results.append(entry)
+            log(f"statics N = {n}, {name}: {entry['per_cpu_second']:.3g} independent Rg^2 samples per CPU-second"
+                + (" (upper bound)" if entry["upper_bound"] else ""))
+    summary = {"temperature": temperature, "cpu_seconds_per_run": cpu_seconds}
+    rate = {(r["n_beads"], r["sampler"]): r for r in results}
+    ratios = {}
+    for n in sizes:
+        new, old = rate.get((n, "hybrid")), rate.get((n, "hybrid, previous moves"))
+        if new and old:
+            ratios[str(n)] = round(new["per_cpu_second"] / old["per_cpu_second"], 2)
+    summary["ratio_hybrid_to_previous_moves"] = ratios
+    hybrid = [rate[(n, "hybrid")] for n in sizes if (n, "hybrid") in rate]
+    if len(hybrid) >= 2:
+        summary["cost_exponent_hybrid"] = round(cost_exponent([r["n_beads"] for r in hybrid],
+                                                              [r["per_cpu_second"] for r in hybrid]), 2)
+    return {"machine": machine_description(), "date": time.strftime("%Y-%m-%d %H:%M UTC", time.gmtime()),
+            "summary": summary, "runs": results}
+
+
+def format_statics(report):
+    """The statics benchmark as a plain-text table and a summary line."""
+    head = (f"{'N':>6}  {'sampler':<24}{'pivots/round':>13}{'acceptance':>11}{'ms/round':>10}{'g (rounds)':>11}"
+            f"{'indep.':>8}{'per CPU-s':>11}")
+    lines = [head, "-" * len(head)]
+    for r in report["runs"]:
+        acc = f"{r['pivot_acceptance']:.3f}" if r.get("pivot_acceptance") is not None else "-"
+        rate = f"{'<=' if r['upper_bound'] else ''}{r['per_cpu_second']:.3g}"
+        lines.append(f"{r['n_beads']:>6}  {r['sampler']:<24}{r.get('pivots_per_round', '-'):>13}{acc:>11}"
+                     f"{r['ms_per_round']:>10.2f}{max(r['g_autocorrelation'], r['g_blocking'] or 0):>11.1f}"
+                     f"{r['independent_samples']:>8.0f}{rate:>11}")
+    s = report["summary"]
+    tail = f"kT = {s['temperature']}; hybrid / previous moves: " + ", ".join(
+        f"N = {n}: {v}x" for n, v in s["ratio_hybrid_to_previous_moves"].items())
+    if "cost_exponent_hybrid" in s:
+        tail += f"; cost exponent of the hybrid sampler in N: {s['cost_exponent_hybrid']}"
+    m = report["machine"]
+    lines += ["", tail, f"machine: {m['cpu_model']}, {m['nproc']} CPUs; one thread; {report['date']}"]
+    return "\n".join(lines)
