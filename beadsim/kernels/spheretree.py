@@ -7,8 +7,7 @@ beads come within the cutoff of a fixed bead. A binary tree over runs of consecu
 with a sphere that holds its beads, lets the sum skip every pair of nodes whose spheres lie farther
 apart than the cutoff: a dual-tree traversal (Gray and Moore, Adv. Neural Inf. Process. Syst. 13, 521,
 2001) over bounding spheres of chain segments, the structure pivot algorithms for long chains use to
-find overlaps and contacts (Clisby, J. Stat. Phys. 140, 349, 2010; for interacting off-lattice chains,
-Schnabel, Janke and Bachmann, J. Comput. Phys. 230, 4454, 2011). A sphere maps rigidly with its beads,
+find overlaps and contacts (Clisby, J. Stat. Phys. 140, 349, 2010, on lattices). A sphere maps rigidly with its beads,
 so the trial state needs no new tree: a moved node's centre is mapped by the pivot's orthogonal map.
 
 Layout: node 0 covers beads ``[0, n)``; a node of more than ``leaf_size`` beads splits at the middle

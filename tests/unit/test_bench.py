@@ -19,3 +19,28 @@ def test_measure_reports_every_field_and_the_paired_speedup():
                           "one_thread_bead_steps_per_s": out["one_thread_bead_steps_per_s"]}}
     table = bench.format_table(report)
     assert "paired repeats" in table and table.splitlines()[2].startswith("A")
+
+
+def test_statics_cost_exponent_recovers_an_exact_power_law():
+    """Rates r = 40 (N / 256)^-2.3 (exact power law): the fitted exponent is 2.3 to rounding."""
+    from beadsim.statics_bench import cost_exponent
+    sizes = [256, 512, 1024, 2048]
+    assert abs(cost_exponent(sizes, [40.0 * (n / 256) ** -2.3 for n in sizes]) - 2.3) < 1e-12
+
+
+def test_statics_measurement_reports_its_sampler_and_flags_unresolved_runs():
+    """A 24-bead chain for 0.5 CPU-seconds per sampler: every sampler reports a positive rate, and a run is
+    flagged as an upper bound exactly when it is shorter than RESOLVED_RUNS times its g; the hybrid samplers
+    report their pivot acceptance and count (100 for the previous moves)."""
+    from beadsim.statics_bench import RESOLVED_RUNS
+    from beadsim.statics_bench import equilibrated_chain, measure_sampler
+    system = equilibrated_chain(24, 3.3, rounds=200)
+    runs = {name: measure_sampler(system, 3.3, name, cpu_seconds=0.5, warmup_rounds=50)
+            for name in ("hybrid", "hybrid, previous moves", "dynamics")}
+    assert all(r["per_cpu_second"] > 0 and r["rounds"] > 0 for r in runs.values())
+    for r in runs.values():
+        g = max(r["g_autocorrelation"], r["g_blocking"] or 0.0, 1.0)
+        assert r["upper_bound"] == (r["rounds"] < RESOLVED_RUNS * g or r["g_blocking"] is None)
+    assert "pivot_acceptance" not in runs["dynamics"]
+    assert runs["hybrid, previous moves"]["pivots_per_round"] == 100
+    assert 0 < runs["hybrid"]["pivot_acceptance"] < 1
