@@ -160,7 +160,7 @@ def run_statics_benchmark(sizes=(256, 512, 1024), temperature=3.3, cpu_seconds=1
     set_threads(1)
     results = []
     for n in sizes:
-        equilibration = max(4000, 8 * n)
+        equilibration = max(4000, 4 * n)
         log(f"statics N = {n}: equilibrating ({equilibration} rounds of hybrid sampling)")
         system = equilibrated_chain(n, temperature, equilibration)
         for name in samplers:
