@@ -78,6 +78,9 @@ def _cmd_bench(args):
     return 0
 
 
+STATICS_SAMPLERS = ("hybrid", "previous-moves", "dynamics")
+
+
 def _statics_bench(args):
     import json
 
@@ -88,7 +91,7 @@ def _statics_bench(args):
               f"about {len(args.sizes) * (3 * args.cpu_seconds + 60) / 60:.0f} minutes or more", file=sys.stderr)
     log = (lambda line: None) if args.quiet else (lambda line: print(f"beadsim: {line}", file=sys.stderr))
     report = run_statics_benchmark(sizes=args.sizes, temperature=args.temperature, cpu_seconds=args.cpu_seconds,
-                                   log=log)
+                                   samplers=args.samplers, log=log)
     print(format_statics(report))
     if args.json:
         Path(args.json).write_text(json.dumps(report, indent=2) + "\n", encoding="utf-8")
@@ -160,6 +163,8 @@ def build_parser():
     p.add_argument("--temperature", type=float, default=3.3, help="kT (--statics; default 3.3)")
     p.add_argument("--cpu-seconds", type=float, default=120.0, help="production CPU budget per sampler and "
                    "length (--statics; default 120)")
+    p.add_argument("--samplers", nargs="+", choices=list(STATICS_SAMPLERS), default=list(STATICS_SAMPLERS),
+                   help="samplers to measure (--statics; default all)")
     p.set_defaults(func=_cmd_bench)
 
     p = sub.add_parser("vet", help="check a model before production: timestep, forces, tables, bond crossing, "

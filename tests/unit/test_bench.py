@@ -36,11 +36,11 @@ def test_statics_measurement_reports_its_sampler_and_flags_unresolved_runs():
     from beadsim.statics_bench import equilibrated_chain, measure_sampler
     system = equilibrated_chain(24, 3.3, rounds=200)
     runs = {name: measure_sampler(system, 3.3, name, cpu_seconds=0.5, warmup_rounds=50)
-            for name in ("hybrid", "hybrid, previous moves", "dynamics")}
+            for name in ("hybrid", "previous-moves", "dynamics")}
     assert all(r["per_cpu_second"] > 0 and r["rounds"] > 0 for r in runs.values())
     for r in runs.values():
         g = max(r["g_autocorrelation"], r["g_blocking"] or 0.0, 1.0)
         assert r["upper_bound"] == (r["rounds"] < RESOLVED_RUNS * g or r["g_blocking"] is None)
     assert "pivot_acceptance" not in runs["dynamics"]
-    assert runs["hybrid, previous moves"]["pivots_per_round"] == 100
+    assert runs["previous-moves"]["pivots_per_round"] == 100
     assert 0 < runs["hybrid"]["pivot_acceptance"] < 1
