@@ -24,12 +24,13 @@ Why two branches (measured in analysis/statics_speed.md, LJ chains of 512 beads,
 rounds of 20 steps): per round, the decorrelation rate of Rg grows with the pivot
 count P, ``1/g = alpha + beta P`` with ``beta`` proportional to the acceptance,
 and the cost is ``c0 + c_p P``; the independent samples per CPU-second,
-``(alpha + beta P) / (c0 + c_p P)``, are then monotonic in P. Near theta
-(acceptance 16 %) they rose from 6.5 (100 pivots per round) through 10-22
-(250) to 27-29 (1,000; runs of 5,000-20,000 rounds, whose g scatter by a
-factor of two between runs at 250); in the globule (1.4 %) they were the same
-within their errors from 20 to 1,000 pivots, so the cheapest round, with few
-pivots, is kept there.
+``(alpha + beta P) / (c0 + c_p P)``, are then monotonic in P, but the slope
+changes with N. Near theta, about 40 accepted pivots per round (190-310 pivots)
+against about 160 (800-1,000) gave 55 against 33 samples per CPU-second at
+N = 256, 10-22 against 12-29 at N = 512 (g scatters by a factor of two between
+runs there) and 5.1 against 5.0 at N = 1,024; in the globule (1.4 %) 20 to
+1,000 pivots per round gave the same rate within errors, so the cheapest round,
+with few pivots, is kept there.
 """
 
 import logging
@@ -60,11 +61,10 @@ the sampling and a few pivots still move chain ends (the fastest mix measured th
 MIN_TUNED_PIVOTS = 5
 """Fewest pivot moves per round a tuned count may take (our choice: keeps chain-scale moves in every round)."""
 
-MAX_TUNED_PIVOTS = 1000
-"""Most pivot moves per round a tuned count may take (our choice: at N = 512 near theta, 1,000 pivots per 20
-steps left consecutive rounds nearly uncorrelated, g = 2.2, and were the fastest mix measured; near the
-collapse, where 4-10 % of pivots are accepted, an uncapped count would make those points the slowest of a
-study)."""
+MAX_TUNED_PIVOTS = 400
+"""Most pivot moves per round a tuned count may take (our choice: at N = 1,024 near theta 310 and 1,000
+pivots per 20 steps gave the same rate, analysis/statics_speed.md; near the collapse, where 4-10 % of pivots
+are accepted, an uncapped count would make those points the slowest of a study)."""
 
 OVERLAP_GRID = 4096
 """Distances in (0, cutoff] at which the pair potentials are evaluated to find the overlap radius (our choice:
