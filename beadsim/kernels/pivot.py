@@ -68,7 +68,7 @@ from numba import njit
 from .forces import BOND_FENE, BOND_HARMONIC, hermite_table, pair_energy_force
 from .neighbors import _bucket, _is_excluded
 from .random import normal_pair, uniform_open
-from .spheretree import block_pair_energy, update_spheres
+from .spheretree import block_pair_energy, split_pair_energy, update_spheres
 
 PIVOT, CRANKSHAFT = 0, 1
 OVERLAP, REST = 0, 1  # the two parts of the pair energy (_pair_energy_with_fixed)
@@ -176,16 +176,11 @@ def _pair_energy_with_fixed(i, x, y, z, lo, hi, pos, types, kinds, params, table
                             dz = pos[j, 2] - z
                             r2 = dx * dx + dy * dy + dz * dz
                             if part == REST or r2 < r2_hard:
-                                if r2 == 0.0:
+                                u, ok = split_pair_energy(kind, params[ti, types[j]], r2, tables, cap, r2_hard,
+                                                          part == OVERLAP)
+                                if not ok:
                                     return 0.0, False
-                                u, _, inside = pair_energy_force(kind, params[ti, types[j]], r2, tables)
-                                if not inside:
-                                    return 0.0, False
-                                overlaps = r2 < r2_hard and u > cap
-                                if part == OVERLAP:
-                                    energy += u - cap if overlaps else 0.0
-                                else:  # cap itself, not u - (u - cap): that loses the cap's digits when u is huge
-                                    energy += cap if overlaps else u
+                                energy += u
                     j = nxt[j]
     return energy, True
 

@@ -173,6 +173,25 @@ def _pieces(lo, hi, pos, n_nodes, node_lo, node_hi, left, center, radius, moved,
     return n_moved, n_fixed
 
 
+@njit(cache=True, inline="always")
+def split_pair_energy(kind, p, r2, tables, cap, r2_hard, overlap):
+    """The overlap part (``overlap``) or the rest of one pair's energy at squared distance ``r2``.
+
+    A pair closer than ``sqrt(r2_hard)`` with energy ``u > cap`` has the overlap part ``u - cap`` and
+    the rest ``cap``; any other pair none and ``u``. Returns ``(part, ok)``; ``ok`` is False for a pair at
+    zero distance or outside its table.
+    """
+    if r2 == 0.0:
+        return 0.0, False
+    u, _, inside = pair_energy_force(kind, p, r2, tables)
+    if not inside:
+        return 0.0, False
+    overlaps = r2 < r2_hard and u > cap
+    if overlap:
+        return (u - cap if overlaps else 0.0), True
+    return (cap if overlaps else u), True  # cap itself: u - (u - cap) loses the cap's digits when u is huge
+
+
 @njit(cache=True)
 def _leaf_pairs(a0, a1, b0, b1, coords, pos, types, kinds, params, tables, excl_start, excl, reach2, cap,
                 r2_hard, overlap):
@@ -192,16 +211,10 @@ def _leaf_pairs(a0, a1, b0, b1, coords, pos, types, kinds, params, tables, excl_
             kind = kinds[ti, types[j]]
             if kind == 0 or (has_excl and _is_excluded(i, j, excl_start, excl)):
                 continue
-            if r2 == 0.0:
+            part, ok = split_pair_energy(kind, params[ti, types[j]], r2, tables, cap, r2_hard, overlap)
+            if not ok:
                 return 0.0, False
-            u, _, inside = pair_energy_force(kind, params[ti, types[j]], r2, tables)
-            if not inside:
-                return 0.0, False
-            overlaps = r2 < r2_hard and u > cap
-            if overlap:
-                energy += u - cap if overlaps else 0.0
-            else:
-                energy += cap if overlaps else u
+            energy += part
     return energy, True
 
 
