@@ -2,7 +2,7 @@
 
 The ladder is ``analysis/studies/replica_exchange_ladder.toml`` (8 rungs, T = 1.8 to 3.0); the plain
 run is its base model at T = 1.8 for 8 times the steps each replica takes. Both start from swollen
-grown chains. Each part is resumable and measures the processor time it used (summed over sessions
+grown chains. Each part is resumable and measures the processor time it used (summed over invocations
 in ``cpu.json`` of its folder).
 
 Usage::
@@ -229,7 +229,7 @@ def swollen_ladder(folder, index):
 
 
 def swollen_all(folder):
-    """The start, then plain runs and ladders in turn (so that an interrupted session leaves pairs)."""
+    """The start, then plain runs and ladders in turn (so that an interrupted invocation leaves pairs)."""
     swollen_start(folder)
     for i in range(len(PLAIN_SEEDS)):
         swollen_plain(folder, i)

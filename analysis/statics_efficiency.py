@@ -59,7 +59,7 @@ def measure(settings):
         wall = time.perf_counter() - started
     sampling = summary["sampling"]
     return {"rate": sampling["rg_independent_samples"], "acceptance": sampling.get("acceptance"),
-            "cpu_seconds": sampling["cpu_seconds_this_session"], "wall_seconds": round(wall, 1)}
+            "cpu_seconds": sampling["cpu_seconds_this_invocation"], "wall_seconds": round(wall, 1)}
 
 
 def main():

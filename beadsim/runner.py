@@ -412,7 +412,7 @@ def _summary(settings, sim, wall, steps):
         "input_sha256": settings_hash(settings),
         "beads": int(sim.system.n_beads),
         "final_step": int(sim.step_count),
-        "steps_this_session": int(steps),
+        "steps_this_invocation": int(steps),
         "wall_seconds": round(wall, 3),
         "bead_steps_per_second": round(steps * sim.system.n_beads / wall, 1) if wall > 0 else None,
         "verlet_list_rebuilds": int(sim.rebuilds),
@@ -423,7 +423,7 @@ def _summary(settings, sim, wall, steps):
 def _sampling_summary(settings, sim, out, steps, cpu_seconds):
     """Sampling method, Monte Carlo acceptance (hybrid) and independent Rg samples per CPU-second.
 
-    The rate uses the production rows of the scalar table and this session's
+    The rate uses the production rows of the scalar table and this invocation's
     CPU time per step (Monte Carlo rounds included), so it holds for resumed runs too.
     """
     from .analysis.efficiency import independent_samples_rate
@@ -434,9 +434,9 @@ def _sampling_summary(settings, sim, out, steps, cpu_seconds):
     table = read_table(out / TABLE_FILE)
     rg = table["radius_of_gyration"][table["step"] > settings["run"]["equilibration_steps"]].to_numpy()
     speed = steps / cpu_seconds if steps > 0 and cpu_seconds > 0 else None
-    report["cpu_seconds_this_session"] = round(cpu_seconds, 3)
+    report["cpu_seconds_this_invocation"] = round(cpu_seconds, 3)
     if speed is None or rg.size < 2:
-        report["rg_independent_samples"] = {"per_cpu_second": None, "reason": "no production steps in this session"}
+        report["rg_independent_samples"] = {"per_cpu_second": None, "reason": "no production steps in this invocation"}
     else:
         report["rg_independent_samples"] = independent_samples_rate(rg, settings["output"]["table_interval"], speed)
     return report

@@ -9,7 +9,7 @@ already holds frames a checkpoint relies on:
   format as the trajectory); at each checkpoint the open part is flushed,
   ``fsync``-ed and closed (*sealed*), and the checkpoint records the
   :class:`manifest <PartedTrajectory.manifest>`: the frames of the *base* file
-  (the trajectory itself, holding the frames of earlier sessions) and the
+  (the trajectory itself, holding the frames of earlier invocations) and the
   name and frame count of every sealed part;
 * when the run ends, base and parts are joined into a new base that replaces
   the old one atomically (:mod:`beadsim.io._atomic`); a second checkpoint

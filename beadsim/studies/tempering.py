@@ -591,8 +591,8 @@ def run_ladder(ladder, model, out, *, backend=None, progress=True, analyze=True,
             bar.close()
             outputs.close()
             summary = _write_summary(out, ladder, model, state, analyze,
-                                     {"rounds_this_session": int(state.round - first_round),
-                                      "wall_seconds_this_session": round(time.perf_counter() - started, 2),
+                                     {"rounds_this_invocation": int(state.round - first_round),
+                                      "wall_seconds_this_invocation": round(time.perf_counter() - started, 2),
                                       "workers": runner.slots})
     finally:
         bar.close()
@@ -600,10 +600,10 @@ def run_ladder(ladder, model, out, *, backend=None, progress=True, analyze=True,
     return summary
 
 
-def _write_summary(out, ladder, model, state, analyze, session):
+def _write_summary(out, ladder, model, state, analyze, invocation):
     """Exchange statistics (and, with ``analyze``, :func:`analyze_ladder`) into ``summary.json``; return them."""
     temps = np.array(ladder["temperatures"])
-    summary = {"rounds_completed": int(state.round), "cpu_seconds": round(float(state.cpu_seconds), 2), **session,
+    summary = {"rounds_completed": int(state.round), "cpu_seconds": round(float(state.cpu_seconds), 2), **invocation,
                "temperatures": temps.tolist()}
     summary.update(exchange_statistics(state, temps))
     if analyze:

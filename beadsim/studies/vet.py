@@ -724,7 +724,7 @@ def run_intended(ctx, timestep, n_equilibration, n_production, frame_interval):
     folder = ctx.out / "runs" / "intended_condition"
     summary = run(s, folder, overwrite=True, progress=False)
     result = analyze_point(folder, s)
-    result["steps_per_second"] = summary["steps_this_session"] / summary["wall_seconds"]
+    result["steps_per_second"] = summary["steps_this_invocation"] / summary["wall_seconds"]
     return folder, s, result
 
 

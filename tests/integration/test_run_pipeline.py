@@ -126,7 +126,7 @@ def test_summary_records_versions_seed_and_throughput(small_run):
     assert summary["seed"] == SMALL["seed"]
     assert summary["beads"] == SMALL["length"]
     total = SMALL["equilibration_steps"] + SMALL["production_steps"]
-    assert summary["final_step"] == summary["steps_this_session"] == total
+    assert summary["final_step"] == summary["steps_this_invocation"] == total
     assert summary["wall_seconds"] > 0
     assert summary["bead_steps_per_second"] > 0
     assert len(summary["input_sha256"]) == 64 and int(summary["input_sha256"], 16) >= 0
@@ -286,7 +286,7 @@ def test_sigkill_then_resume_reproduces_an_uninterrupted_run(tmp_path, write_inp
         np.testing.assert_array_equal(arrays_a[name], arrays_b[name], err_msg=name)
     summary = json.loads((killed / "summary.json").read_text(encoding="utf-8"))
     assert summary["final_step"] == total
-    assert summary["steps_this_session"] == total - ck_step  # continued from the last checkpoint
+    assert summary["steps_this_invocation"] == total - ck_step  # continued from the last checkpoint
 
 
 # ---------------------------------------------------------------------------------------------------------------

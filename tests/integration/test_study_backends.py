@@ -109,9 +109,9 @@ def test_killed_dask_worker_costs_no_point_and_records_none_twice(tmp_path):
     assert killed["final_step"] == 2000 + 100000
     if table.set_index("key").loc[killed_key, "restarted"]:
         # the kill left the point's HDF5 trajectory unreadable: by design the point reran from step 0
-        assert killed["steps_this_session"] == killed["final_step"]
+        assert killed["steps_this_invocation"] == killed["final_step"]
     else:
-        assert 0 < killed["steps_this_session"] < killed["final_step"]  # resumed from its checkpoint
+        assert 0 < killed["steps_this_invocation"] < killed["final_step"]  # resumed from its checkpoint
 
 
 def test_ctrl_c_leaves_store_consistent_and_rerun_completes(tmp_path, beadsim_command, subprocess_env):
