@@ -33,6 +33,7 @@ from .engine.simulation import Simulation
 from .engine.threads import set_threads
 from .model.build import build_chains
 from .model.potentials import FENE, ForceField, LennardJones
+from .studies.sweep import STUDY_HYBRID
 
 SEGMENT_STEPS = 20
 """Integrator steps per round (and between two Rg^2 samples) for every sampler."""
@@ -51,8 +52,6 @@ def _simulation(system, temperature, seed):
 
 
 def _sampler(sim, name, warmup_steps):
-    from .studies.sweep import STUDY_HYBRID
-
     if name == "dynamics":
         return None
     if name == "hybrid":

@@ -325,16 +325,15 @@ def _bonded_change(lo, hi, trial, pos, ff, bond_start, bond_of, angle_start, ang
 
 
 @njit(cache=True)
-def tree_energy_change(lo, hi, pivot, trial, pos, types, ff, excl_start, excl, bond_start, bond_of, angle_start,
+def tree_energy_change(lo, hi, trial, pos, types, ff, excl_start, excl, bond_start, bond_of, angle_start,
                        angle_of, reach, cap, r2_hard, g, origin, tree):
-    """:func:`trial_energy_change` of a pivot move (``trial`` = ``pos`` of the block mapped by ``g`` about bead
-    ``pivot``), with the pair sums taken over the bounding-sphere tree (:mod:`beadsim.kernels.spheretree`).
+    """:func:`trial_energy_change` of a pivot move (``trial`` = ``pos`` of the block mapped by ``g`` about
+    ``origin``, float64 (3,): the pivot bead's position), with the pair sums taken over the bounding-sphere
+    tree (:mod:`beadsim.kernels.spheretree`).
 
-    ``reach`` is the largest pair cutoff (sigma), ``origin`` float64 (3,) scratch and ``tree`` as
+    ``reach`` is the largest pair cutoff (sigma) and ``tree`` as
     :func:`~beadsim.kernels.spheretree.block_pair_energy`; the other arguments as :func:`trial_energy_change`.
     """
-    for d in range(3):
-        origin[d] = pos[pivot, d]
     u_new, ok = block_pair_energy(lo, hi, trial, True, g, origin, pos, types, ff, excl_start, excl, reach, cap,
                                   r2_hard, False, math.inf, tree)
     if not ok:
@@ -589,8 +588,8 @@ def metropolis_moves(kind, n_moves, first_move, seed, temperature, max_angle, po
             if d_overlap == math.inf:
                 continue
         if use_tree:
-            d_rest, ok = tree_energy_change(lo, hi, pivot, trial, pos, types, ff, excl_start, excl, bond_start,
-                                            bond_of, angle_start, angle_of, width, cap, r2_hard, g, origin, tree)
+            d_rest, ok = tree_energy_change(lo, hi, trial, pos, types, ff, excl_start, excl, bond_start, bond_of,
+                                            angle_start, angle_of, width, cap, r2_hard, g, origin, tree)
         else:
             d_rest, ok = trial_energy_change(lo, hi, trial, pos, types, ff, excl_start, excl, bond_start, bond_of,
                                              angle_start, angle_of, width, head, nxt, seen, cap, r2_hard)

@@ -60,7 +60,7 @@ def _trial_changes(sim, s, kind, move, g, origin, cap, r_hard):
     assert ok
     rest_tree = None
     if kind == KP.PIVOT:
-        rest_tree, ok = KP.tree_energy_change(lo, hi, pivot, s.trial, *args, s.bond_start, s.bond_of, s.angle_start,
+        rest_tree, ok = KP.tree_energy_change(lo, hi, s.trial, *args, s.bond_start, s.bond_of, s.angle_start,
                                               s.angle_of, c.width, cap, r_hard ** 2, g, origin, s.tree.arrays())
         assert ok
     barrier = 0.0
