@@ -25,6 +25,7 @@ import math
 import time
 
 import numpy as np
+from scipy.stats import linregress
 
 from .analysis.stats import blocking, statistical_inefficiency, summarize
 from .engine.hybrid import HybridSampler
@@ -134,8 +135,16 @@ def measure_sampler(system, temperature, name, cpu_seconds, warmup_rounds, seed=
 
 
 def cost_exponent(sizes, rates):
-    """x in (independent samples per CPU-second) ~ N^-x: least squares on the logarithms."""
-    return float(-np.polyfit(np.log(sizes), np.log(rates), 1)[0])
+    """x in (independent samples per CPU-second) ~ N^-x, by least squares on the logarithms.
+
+    Returns
+    -------
+    (float, float or None)
+        x and its standard error from the scatter about the line (scipy.stats.linregress); None with
+        fewer than three lengths, where the line has no residuals to judge it by.
+    """
+    fit = linregress(np.log(sizes), np.log(rates))
+    return float(-fit.slope), (float(fit.stderr) if len(sizes) >= 3 else None)
 
 
 def run_statics_benchmark(sizes=(256, 512, 1024), temperature=3.3, cpu_seconds=120.0,
@@ -177,8 +186,12 @@ def run_statics_benchmark(sizes=(256, 512, 1024), temperature=3.3, cpu_seconds=1
     summary["ratio_hybrid_to_previous_moves"] = ratios
     hybrid = [rate[(n, "hybrid")] for n in sizes if (n, "hybrid") in rate]
     if len(hybrid) >= 2:
-        summary["cost_exponent_hybrid"] = round(cost_exponent([r["n_beads"] for r in hybrid],
-                                                              [r["per_cpu_second"] for r in hybrid]), 2)
+        x, error = cost_exponent([r["n_beads"] for r in hybrid], [r["per_cpu_second"] for r in hybrid])
+        summary["cost_exponent_hybrid"] = {
+            "value": round(x, 2), "error": None if error is None else round(error, 2),
+            "reason": "two lengths: a line through two points has no error" if error is None else
+                      "standard error of the slope from the scatter of the lengths about the power law; "
+                      "it does not see a bias common to all lengths (runs too short for their slowest drift)"}
     return {"machine": machine_description(), "date": time.strftime("%Y-%m-%d %H:%M UTC", time.gmtime()),
             "summary": summary, "runs": results}
 
@@ -200,7 +213,9 @@ def format_statics(report):
         tail += "; hybrid / previous moves: " + ", ".join(
             f"N = {n}: {v}x" for n, v in s["ratio_hybrid_to_previous_moves"].items())
     if "cost_exponent_hybrid" in s:
-        tail += f"; cost exponent of the hybrid sampler in N: {s['cost_exponent_hybrid']}"
+        x = s["cost_exponent_hybrid"]
+        tail += (f"; cost exponent of the hybrid sampler in N: {x['value']}"
+                 + (f" +- {x['error']}" if x["error"] is not None else f" (no error: {x['reason']})"))
     m = report["machine"]
     lines += ["", tail, f"machine: {m['cpu_model']}, {m['nproc']} CPUs; one thread; {report['date']}"]
     return "\n".join(lines)

@@ -1,5 +1,7 @@
 """`beadsim bench` bookkeeping on a tiny system (no timing is asserted: speed is recorded, not tested)."""
 
+import numpy as np
+
 import beadsim as bs
 from beadsim import bench
 
@@ -22,10 +24,29 @@ def test_measure_reports_every_field_and_the_paired_speedup():
 
 
 def test_statics_cost_exponent_recovers_an_exact_power_law():
-    """Rates r = 40 (N / 256)^-2.3 (exact power law): the fitted exponent is 2.3 to rounding."""
+    """Rates r = 40 (N / 256)^-2.3 (exact power law): the fitted exponent is 2.3 to rounding, with a zero error;
+    two lengths give no error at all."""
     from beadsim.statics_bench import cost_exponent
     sizes = [256, 512, 1024, 2048]
-    assert abs(cost_exponent(sizes, [40.0 * (n / 256) ** -2.3 for n in sizes]) - 2.3) < 1e-12
+    x, error = cost_exponent(sizes, [40.0 * (n / 256) ** -2.3 for n in sizes])
+    assert abs(x - 2.3) < 1e-12 and error < 1e-12
+    assert cost_exponent(sizes[:2], [40.0, 10.0])[1] is None
+
+
+def test_statics_cost_exponent_error_is_the_textbook_slope_error():
+    """Scattered rates: the error is the standard error of a least-squares slope,
+    sqrt(sum(residual^2) / (n - 2) / sum((x - mean x)^2)) in x = ln N (any regression text, e.g. Draper and
+    Smith, Applied Regression Analysis, 1998, ch. 1), written out here."""
+    from beadsim.statics_bench import cost_exponent
+    sizes = np.array([256, 512, 1024, 2048])
+    rates = np.array([30.0, 18.0, 5.0, 4.0])
+    x, y = np.log(sizes), np.log(rates)
+    sxx = np.sum((x - x.mean()) ** 2)
+    slope = np.sum((x - x.mean()) * (y - y.mean())) / sxx
+    residual = y - y.mean() - slope * (x - x.mean())
+    expected = np.sqrt(np.sum(residual ** 2) / (x.size - 2) / sxx)
+    value, error = cost_exponent(sizes, rates)
+    assert abs(value + slope) < 1e-12 and abs(error - expected) < 1e-12
 
 
 def test_statics_measurement_reports_its_sampler_and_flags_unresolved_runs():
@@ -44,3 +65,13 @@ def test_statics_measurement_reports_its_sampler_and_flags_unresolved_runs():
     assert "pivot_acceptance" not in runs["dynamics"]
     assert runs["previous-moves"]["pivots_per_round"] == 100
     assert 0 < runs["hybrid"]["pivot_acceptance"] < 1
+
+
+def test_statics_benchmark_reports_the_exponent_with_its_error():
+    """Three short chains, hybrid only: the summary gives the cost exponent as a value with an error (three
+    lengths) and the table prints both."""
+    from beadsim.statics_bench import format_statics, run_statics_benchmark
+    report = run_statics_benchmark(sizes=(12, 16, 24), cpu_seconds=0.3, samplers=("hybrid",), log=lambda line: None)
+    x = report["summary"]["cost_exponent_hybrid"]
+    assert np.isfinite(x["value"]) and x["error"] is not None and x["error"] >= 0
+    assert f"cost exponent of the hybrid sampler in N: {x['value']} +- {x['error']}" in format_statics(report)
