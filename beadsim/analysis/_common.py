@@ -1,4 +1,4 @@
-"""Shared argument checks and chain grouping for the array-level analysis functions.
+"""Shared argument checks, chain grouping and lagged sums for the array-level analysis functions.
 
 Chains are given as a sequence of integer index arrays, one per chain, each
 listing the chain's beads in backbone order (as returned by
@@ -11,6 +11,24 @@ import numpy as np
 
 from .._validate import as_array, positive
 from ..errors import AnalysisError, InputError
+
+
+def autocorrelation_sum(v):
+    """``sum_t v_t . v_{t+m}`` for m = 0..T-1 of paths ``v`` (T, ..., d) -> (T, ...), by a zero-padded FFT.
+
+    Parameters
+    ----------
+    v : ndarray, shape (T, ..., d), float64
+        Equally spaced values; the last axis is summed over (the dot product).
+
+    Returns
+    -------
+    ndarray, shape (T, ...), float64
+        Unnormalised lagged sums over the T - m time origins of each lag m.
+    """
+    n = v.shape[0]
+    spectrum = np.fft.rfft(v, n=2 * n, axis=0)
+    return np.fft.irfft(np.sum(spectrum * spectrum.conj(), axis=-1).real, n=2 * n, axis=0)[:n]
 
 
 def check_positions(positions, name="positions"):

@@ -18,16 +18,9 @@ import numpy as np
 
 from .._validate import as_array, interval, positive, positive_int
 from ..errors import AnalysisError, InputError
-from ._common import check_chains, check_positions, line_fit
+from ._common import autocorrelation_sum, check_chains, check_positions, line_fit
 from .size import end_to_end_vector
 from .trajectory import find_chains, trajectory_positions
-
-
-def _autocorrelation_sum(v):
-    """``sum_t v_t . v_{t+m}`` for m = 0..T-1 of paths ``v`` (T, ..., 3) -> (T, ...)."""
-    n = v.shape[0]
-    spectrum = np.fft.rfft(v, n=2 * n, axis=0)
-    return np.fft.irfft(np.sum(spectrum * spectrum.conj(), axis=-1).real, n=2 * n, axis=0)[:n]
 
 
 def _frames(series, name):
@@ -57,7 +50,7 @@ def mean_square_displacement(paths):
     prefix = np.concatenate([np.zeros((1, r.shape[1])), np.cumsum(sq, axis=0)], axis=0)
     m = np.arange(n)
     squares = prefix[n - m] + (prefix[n] - prefix[m])
-    msd = (squares - 2.0 * _autocorrelation_sum(r)) / (n - m)[:, None]
+    msd = (squares - 2.0 * autocorrelation_sum(r)) / (n - m)[:, None]
     return np.maximum(msd, 0.0)
 
 
@@ -185,7 +178,7 @@ def vector_autocorrelation(vectors):
     """
     v = _frames(as_array(vectors, "vectors", shape=(None, None, 3)), "vectors")
     n = v.shape[0]
-    corr = _autocorrelation_sum(v).sum(axis=1) / (n - np.arange(n))
+    corr = autocorrelation_sum(v).sum(axis=1) / (n - np.arange(n))
     if corr[0] <= 0:
         raise AnalysisError("vectors: all zero, autocorrelation undefined")
     return corr / corr[0]

@@ -42,7 +42,7 @@ import numpy as np
 
 from .._validate import as_array, positive, positive_int
 from ..errors import AnalysisError, InputError
-from .dynamics import _autocorrelation_sum
+from ._common import autocorrelation_sum
 from .stats import summarize
 
 RESOLVED_INEFFICIENCY = 2.0
@@ -139,7 +139,7 @@ def _lagged_moments(runs, mean, max_lag):
     dev = x - float(mean)
     lags = np.arange(max_lag + 1)
     counts = n - lags
-    products = _autocorrelation_sum(dev.T[:, :, None])[: max_lag + 1].T / counts
+    products = autocorrelation_sum(dev.T[:, :, None])[: max_lag + 1].T / counts
     cumulative = np.concatenate([np.zeros((x.shape[0], 1)), np.cumsum(dev * dev, axis=1)], axis=1)
     head = cumulative[:, n - lags] / counts
     tail = (cumulative[:, n:] - cumulative[:, lags]) / counts
