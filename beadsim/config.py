@@ -81,7 +81,9 @@ SCHEMA = {
     "dynamics": {
         "integrator": (str, "baoab", choice(*INTEGRATORS), "integration scheme"),
         "timestep": (float, 0.005, POSITIVE, "dt, tau"),
-        "temperature": (float, 1.0, POSITIVE, "kT, epsilon"),
+        "temperature": (float, 1.0, POSITIVE,
+                        "kT, epsilon: the thermostat's, and that of the Maxwell-Boltzmann start velocities (verlet, "
+                        "which has no thermostat, uses it for the start velocities only; brownian starts at rest)"),
         "friction": (float, 0.5, POSITIVE, "Langevin friction gamma, 1/tau"),
         "skin": (float, 0.4, POSITIVE, "Verlet-list skin, sigma"),
     },
@@ -106,7 +108,8 @@ SCHEMA = {
                                  "hybrid: largest crankshaft rotation, degrees"),
     },
     "run": {
-        "seed": (int, REQUIRED, ("an integer >= 0", lambda v: v >= 0), "seed of the start structure and the noise"),
+        "seed": (int, REQUIRED, ("an integer >= 0", lambda v: v >= 0),
+                 "seed of the start structure, the start velocities and the noise"),
         "minimize": (bool, True, _ANY, "remove overlaps with FIRE before dynamics"),
         "equilibration_steps": (int, 10_000, ("an integer >= 0", lambda v: v >= 0), "steps before frames are saved"),
         "production_steps": (int, 100_000, AT_LEAST_ONE, "steps with frames saved"),

@@ -265,6 +265,12 @@ def _only_longer(stored, settings):
 def run(settings, out, *, resume=False, overwrite=False, progress=True, allow_longer=False):
     """Minimise, equilibrate and sample as the settings say, writing everything into ``out``.
 
+    A new run starts, after minimisation, from the velocities of
+    :meth:`beadsim.engine.integrators.Integrator.start_velocities`: Maxwell-Boltzmann
+    at ``[dynamics] temperature`` drawn from the run's seed (baoab: every component;
+    verlet: centre-of-mass motion removed; brownian: zero, it has no velocities).
+    A resumed run takes its velocities from the checkpoint.
+
     Parameters
     ----------
     settings : dict
@@ -306,6 +312,7 @@ def run(settings, out, *, resume=False, overwrite=False, progress=True, allow_lo
         (out / INPUT_FILE).write_text(to_toml(settings), encoding="utf-8")
         if settings["run"]["minimize"]:
             sim.minimize()
+        sim.system.velocities[:] = sim.integrator.start_velocities(sim.system.masses, settings["run"]["seed"])
     recorder = _Recorder(sim, settings, out, manifest)
     start_step, started, cpu_started = sim.step_count, time.perf_counter(), time.process_time()
     bar = _progress(total, start_step, progress)

@@ -6,6 +6,10 @@ Contract of :class:`Integrator` (what a subclass provides):
 2. ``thermostatted``: whether the scheme holds a temperature.
 3. ``_coefficients(masses)`` -> ``(coeffs, noise_scale)``: the float64 (2,)
    scheme constants and the float64 (n,) per-bead noise amplitudes.
+4. optionally ``start_velocities(masses, seed)``: the velocities a run starts
+   from; the base class draws them from the Maxwell-Boltzmann distribution at
+   ``temperature``, removing the centre-of-mass motion only for schemes without a
+   thermostat (which conserve momentum).
 
 The public :meth:`Integrator.step` keeps the bookkeeping (step count, status
 check, errors); ``_step_impl`` runs the compiled loop.
@@ -19,6 +23,7 @@ from .._validate import positive
 from ..errors import InstabilityError
 from ..kernels import forces as KF
 from ..kernels.integrate import BAOAB as _BAOAB, BROWNIAN as _BROWNIAN, VERLET as _VERLET, advance
+from ..model.build import maxwell_boltzmann_velocities
 from ..model.potentials import lookup
 from .health import non_finite_term
 from .threads import threads_for
@@ -47,6 +52,31 @@ class Integrator:
 
     def _coefficients(self, masses):
         raise NotImplementedError
+
+    def start_velocities(self, masses, seed):
+        """Velocities a run starts from: Maxwell-Boltzmann at ``temperature``, reproducible from ``seed``.
+
+        A thermostatted scheme gets every component drawn (its kinetic temperature
+        counts 3 n degrees of freedom, so the start is an equilibrium sample of the
+        velocities). A scheme without a thermostat conserves momentum, so the
+        centre-of-mass motion is removed: a drifting system would carry the drift
+        for the whole run (an open-box chain would fly off), and the kinetic
+        temperature then starts at kT (3 n - 3) / (3 n) on average.
+
+        Parameters
+        ----------
+        masses : float64 (n,)
+            Bead masses, m.
+        seed : int
+            Seed of the run (the velocities have their own stream of it,
+            :func:`beadsim.model.build.maxwell_boltzmann_velocities`).
+
+        Returns
+        -------
+        float64 (n, 3)
+            sigma / tau.
+        """
+        return maxwell_boltzmann_velocities(masses, self.temperature, seed, remove_drift=not self.thermostatted)
 
     def step(self, sim, n_steps):
         """Advance ``sim`` by ``n_steps``; raise InstabilityError if the dynamics broke.
@@ -113,6 +143,10 @@ class Brownian(Integrator):
     """Overdamped Brownian dynamics, Euler-Maruyama; velocities are not defined and stay zero."""
 
     scheme = _BROWNIAN
+
+    def start_velocities(self, masses, seed):
+        """Zero velocities (overdamped dynamics has none), float64 (n, 3)."""
+        return np.zeros((len(masses), 3))
 
     def _coefficients(self, masses):
         return (np.array([1.0 / self.friction, 0.0]),

@@ -2,7 +2,7 @@
 
 import numpy as np
 
-from .._validate import positive, positive_int
+from .._validate import as_array, positive, positive_int
 from ..errors import InputError
 from ..kernels.growth import grow_chains
 from ..kernels.random import splitmix64
@@ -66,24 +66,37 @@ def build_chains(chain_lengths, *, density=None, box_lengths=None, bond_length=F
     return System(pos, lengths, box=box)
 
 
-def maxwell_boltzmann_velocities(masses, temperature, seed):
-    """Velocities drawn from the Maxwell-Boltzmann distribution, centre-of-mass motion removed.
+def maxwell_boltzmann_velocities(masses, temperature, seed, remove_drift=True):
+    """Velocities drawn from the Maxwell-Boltzmann distribution, by default with centre-of-mass motion removed.
+
+    Each Cartesian component of bead i is Gaussian with mean 0 and variance
+    kT / m_i, so the kinetic energy of the 3 n independent components is
+    (kT / 2) times a chi-square variable with 3 n degrees of freedom (3 n - 3
+    once the mass-weighted mean velocity is subtracted).
 
     Parameters
     ----------
     masses : float64 (n,)
-        m.
+        Bead masses, m (each > 0).
     temperature : float
-        epsilon / k_B.
+        kT, epsilon (>= 0; 0 gives zero velocities).
     seed : int
+        Seed; the velocities come from their own stream of it (distinct from the
+        start structure's and the thermostat's), so the same seed gives the same velocities.
+    remove_drift : bool
+        Subtract the mass-weighted mean velocity (no effect for a single bead).
 
     Returns
     -------
     float64 (n, 3)
-        sigma / tau.
+        Velocities, sigma / tau.
     """
+    masses = as_array(masses, "masses", shape=(None,))
+    if np.any(masses <= 0):
+        raise InputError("masses: every bead mass must be > 0")
+    temperature = positive(temperature, "temperature", allow_zero=True)
     rng = np.random.default_rng(stream_seed(seed, _VELOCITY_STREAM))
     v = rng.standard_normal((len(masses), 3)) * np.sqrt(temperature / masses)[:, None]
-    if len(masses) > 1:
+    if remove_drift and len(masses) > 1:
         v -= np.average(v, axis=0, weights=masses)
     return v

@@ -43,7 +43,9 @@ def test_hybrid_run_reports_method_caution_acceptance_and_efficiency(tmp_path, w
 
 
 def test_plain_run_reports_efficiency_without_caution(tmp_path, write_input, run_cli):
-    status, _, _ = run_cli("run", write_input(BASE.format(steps=2000)), "--out", tmp_path / "p", "--quiet")
+    # plain dynamics decorrelates Rg of 16 beads in about 500 steps (g ~ 50-100 rows), so the production part
+    # must be some 20,000 steps to hold enough independent samples for a rate
+    status, _, _ = run_cli("run", write_input(BASE.format(steps=20_000)), "--out", tmp_path / "p", "--quiet")
     assert status == 0
     sampling = _summary(tmp_path / "p")["sampling"]
     assert sampling["method"] == "dynamics" and "note" not in sampling and "acceptance" not in sampling

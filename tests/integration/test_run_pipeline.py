@@ -144,6 +144,24 @@ def test_final_checkpoint_holds_the_last_step(small_run):
     assert meta["beadsim"] == beadsim.__version__
 
 
+def test_run_starts_from_maxwell_boltzmann_velocities_at_the_set_temperature(write_input, run_cli, tmp_path):
+    """Row 0 of the table (the start state) of 1,000 four-bead chains at kT = 1.4 (baoab): T_kin = kT X / (3 n)
+    with X = 2 K / kT chi-square with 3 n = 12,000 degrees of freedom (every component Maxwell-Boltzmann), so
+    mean kT and standard deviation kT sqrt(2 / 12,000) = 0.018 (moments from scipy.stats.chi2); seed 31;
+    tolerance 4 standard deviations. No minimisation, so row 0 holds the drawn velocities themselves."""
+    from scipy.stats import chi2
+    text = ("[chains]\nlength = 4\ncount = 1000\n\n[box]\nkind = \"periodic\"\ndensity = 0.3\n\n"
+            "[nonbonded]\npotential = \"none\"\n\n[dynamics]\ntemperature = 1.4\n\n"
+            "[run]\nseed = 31\nminimize = false\nequilibration_steps = 10\nproduction_steps = 10\n\n"
+            "[output]\nframe_interval = 10\ntable_interval = 10\ncheckpoint_interval = 10\n")
+    status, _, err = run_cli("run", write_input(text), "--out", tmp_path / "out", "--quiet")
+    assert status == 0, err
+    start = pd.read_csv(tmp_path / "out" / "observables.csv").iloc[0]
+    dof = 3 * 4000
+    assert start["step"] == 0
+    assert abs(start["kinetic_temperature"] - 1.4 * chi2(dof).mean() / dof) < 4 * 1.4 * chi2(dof).std() / dof
+
+
 # ---------------------------------------------------------------------------------------------------------------
 # 2. the trajectory as mdtraj sees it
 # ---------------------------------------------------------------------------------------------------------------
