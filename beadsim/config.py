@@ -111,7 +111,8 @@ SCHEMA = {
         "seed": (int, REQUIRED, ("an integer >= 0", lambda v: v >= 0),
                  "seed of the start structure, the start velocities and the noise"),
         "minimize": (bool, True, _ANY, "remove overlaps with FIRE before dynamics"),
-        "equilibration_steps": (int, 10_000, ("an integer >= 0", lambda v: v >= 0), "steps before frames are saved"),
+        "equilibration_steps": (int, 10_000, ("an integer >= 0", lambda v: v >= 0),
+                                "steps before frames are saved (table rows with production = 0)"),
         "production_steps": (int, 100_000, AT_LEAST_ONE, "steps with frames saved"),
     },
     "output": {

@@ -5,7 +5,8 @@ Folder contents (names fixed here, documented in the README):
 ``input.toml``          the fully resolved input
 ``trajectory.h5``       frames of the production phase (name and format from ``[output] trajectory``)
 ``trajectory_parts/``   while the run goes on: frames since the last join, one part per checkpoint interval
-``observables.csv``     scalar table, one row every ``table_interval`` steps
+``observables.csv``     scalar table, one row every ``table_interval`` steps, equilibration rows
+                        included (column ``production`` tells them apart)
 ``checkpoint.npz``      last checkpoint (atomic; no pickle)
 ``summary.json``        versions, seed, threads, input hashes, wall time, throughput
 
@@ -62,6 +63,8 @@ SUMMARY_FILE = "summary.json"
 #: Scalar table columns: name -> unit.
 COLUMNS = {
     "time": "tau",
+    "production": "1 for production rows (step > equilibration_steps, the steps with frames), 0 for "
+                  "equilibration rows (the start state included)",
     "pair_energy": "epsilon",
     "bond_energy": "epsilon",
     "bending_energy": "epsilon",
@@ -133,6 +136,11 @@ def chain_sizes(positions, offsets):
     return math.sqrt(np.mean(rg2)), math.sqrt(np.mean(re2))
 
 
+def is_production(step, settings):
+    """True for a step of the production phase (after ``equilibration_steps``): frames are saved there."""
+    return step > settings["run"]["equilibration_steps"]
+
+
 def frames_before(step, settings):
     """Number of trajectory frames an uninterrupted run has written once it reaches ``step``."""
     fi = settings["output"]["frame_interval"]
@@ -163,9 +171,10 @@ class _Recorder:
             rg, re = chain_sizes(snap.positions, self.offsets)
             obs = snap.observables
             row = {k: obs.get(k, float("nan")) for k in COLUMNS}
-            row.update(time=snap.time, radius_of_gyration=rg, end_to_end_distance=re)
+            row.update(time=snap.time, production=int(is_production(snap.step, self.settings)),
+                       radius_of_gyration=rg, end_to_end_distance=re)
             self.table.append(snap.step, row)
-        if snap.step % o["frame_interval"] == 0 and snap.step > self.settings["run"]["equilibration_steps"]:
+        if snap.step % o["frame_interval"] == 0 and is_production(snap.step, self.settings):
             self.trajectory.append(snap.step, snap.time, snap.positions)
         if snap.step % o["checkpoint_interval"] == 0:
             self.checkpoint()
@@ -439,7 +448,7 @@ def _sampling_summary(settings, sim, out, steps, cpu_seconds):
     if sim.hybrid is not None:
         report.update(note=DYNAMICS_CAUTION, acceptance=sim.hybrid.acceptance())
     table = read_table(out / TABLE_FILE)
-    rg = table["radius_of_gyration"][table["step"] > settings["run"]["equilibration_steps"]].to_numpy()
+    rg = table["radius_of_gyration"][table["production"] == 1].to_numpy()
     speed = steps / cpu_seconds if steps > 0 and cpu_seconds > 0 else None
     report["cpu_seconds_this_invocation"] = round(cpu_seconds, 3)
     if speed is None or rg.size < 2:

@@ -7,6 +7,7 @@ with status 2 and a message naming the key. ``json`` (standard library) reads ``
 import json
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from beadsim import runner
@@ -55,7 +56,8 @@ def test_plain_run_reports_efficiency_without_caution(tmp_path, write_input, run
 def test_extended_hybrid_run_matches_uninterrupted_run(tmp_path, write_input):
     """A hybrid run of 1,000 production steps, resumed and extended to 2,000 (runner allow_longer), ends
     with the positions, move count and acceptance tallies of a run of 2,000 steps in one go (the moves'
-    random numbers are a function of the seed and the move count, which the checkpoint keeps)."""
+    random numbers are a function of the seed and the move count, which the checkpoint keeps), and with the
+    same scalar table, ``production`` column included (1 exactly after the 2,000 equilibration steps)."""
     whole = read_settings(write_input(BASE.format(steps=2000) + HYBRID, "whole.toml"))
     first = read_settings(write_input(BASE.format(steps=1000) + HYBRID, "first.toml"))
     runner.run(whole, tmp_path / "a", progress=False)
@@ -66,6 +68,10 @@ def test_extended_hybrid_run_matches_uninterrupted_run(tmp_path, write_input):
     np.testing.assert_array_equal(a["positions"], b["positions"])
     assert int(a["hybrid_move_count"]) == int(b["hybrid_move_count"]) == 20 * 4000 // 20
     np.testing.assert_array_equal(a["hybrid_counts"], b["hybrid_counts"])
+    table = (tmp_path / "b" / "observables.csv").read_bytes()
+    assert table == (tmp_path / "a" / "observables.csv").read_bytes()
+    rows = pd.read_csv(tmp_path / "b" / "observables.csv")
+    np.testing.assert_array_equal(rows["production"], (rows["step"] > 2000).astype(int))
 
 
 @pytest.mark.parametrize("text, key", [

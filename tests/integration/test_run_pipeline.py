@@ -36,9 +36,9 @@ EPS32 = float(np.finfo(np.float32).eps)
 TIMESTEP = 0.005  # the dynamics.timestep written by chain_input, tau
 OUTPUT_FILES = {"input.toml", "trajectory.h5", "observables.csv", "checkpoint.npz", "summary.json"}
 # The scalar table's columns as the README documents them (written out here, not imported from the runner).
-EXPECTED_COLUMNS = ["step", "time", "pair_energy", "bond_energy", "bending_energy", "potential_energy",
-                    "kinetic_energy", "total_energy", "kinetic_temperature", "pressure", "radius_of_gyration",
-                    "end_to_end_distance"]
+EXPECTED_COLUMNS = ["step", "time", "production", "pair_energy", "bond_energy", "bending_energy",
+                    "potential_energy", "kinetic_energy", "total_energy", "kinetic_temperature", "pressure",
+                    "radius_of_gyration", "end_to_end_distance"]
 
 
 def chain_input(*, length=16, seed=11, equilibration_steps=200, production_steps=1000, frame_interval=100,
@@ -102,8 +102,11 @@ def test_table_has_the_documented_columns_and_one_row_per_table_interval(small_r
     total = SMALL["equilibration_steps"] + SMALL["production_steps"]
     np.testing.assert_array_equal(table["step"], np.arange(0, total + 1, SMALL["table_interval"]))
     np.testing.assert_allclose(table["time"], table["step"] * TIMESTEP, rtol=1e-15, atol=0)  # time = step * dt
+    # production rows are those after the equilibration steps, as documented; frames come from them only
+    np.testing.assert_array_equal(table["production"], (table["step"] > SMALL["equilibration_steps"]).astype(int))
+    assert set(_frame_steps(SMALL)) <= set(table.loc[table["production"] == 1, "step"])
     assert table["pressure"].isna().all()  # open box: no pressure
-    for column in EXPECTED_COLUMNS[2:]:
+    for column in EXPECTED_COLUMNS[3:]:
         if column != "pressure":
             assert np.isfinite(table[column]).all(), column
     # total = potential + kinetic, each a sum of its parts (float64 rounding of three additions)
@@ -158,7 +161,7 @@ def test_run_starts_from_maxwell_boltzmann_velocities_at_the_set_temperature(wri
     assert status == 0, err
     start = pd.read_csv(tmp_path / "out" / "observables.csv").iloc[0]
     dof = 3 * 4000
-    assert start["step"] == 0
+    assert start["step"] == 0 and start["production"] == 0
     assert abs(start["kinetic_temperature"] - 1.4 * chi2(dof).mean() / dof) < 4 * 1.4 * chi2(dof).std() / dof
 
 
