@@ -64,6 +64,9 @@ SCHEMA = {
         "sigma": (float, 1.0, POSITIVE, "bead diameter, sigma"),
         "cutoff": (float, 2.5, POSITIVE, "lennard_jones cutoff, sigma"),
         "shift": (bool, True, _ANY, "lennard_jones: shift the energy to zero at the cutoff"),
+        "tail_correction": (bool, False, _ANY,
+                            "lennard_jones with shift = false in a periodic box: add the analytic long-range "
+                            "corrections (uniform fluid beyond the cutoff) to pair_energy and pressure"),
         "depth": (float, 1.0, NON_NEGATIVE, "cosine_squared attraction depth phi, epsilon"),
         "table": (str, None, _ANY, "table file (r U [F]) for potential = 'table', relative to the input file"),
         "exclude": (str, "none", choice(*EXCLUSIONS), "bead pairs without non-bonded forces"),
@@ -259,7 +262,28 @@ def _resolve(s, source, base):
         raise InputError(f"{source}: [bonds] max_extension: FENE R0 = {s['bonds']['max_extension']} must exceed "
                          f"the start bond_length = {s['bonds']['bond_length']}")
     _apply_solvent_preset(s, source)
+    _check_tail_correction(s, source)
     _check_sampling(s, source)
+
+
+def _check_tail_correction(s, source):
+    """The analytic tail correction holds for Lennard-Jones truncated without shift, in a periodic box."""
+    nb = s["nonbonded"]
+    if not nb["tail_correction"]:
+        return
+    where = f"{source}: [nonbonded] tail_correction = true"
+    preset = s["solvent"]["quality"] is not None or s["solvent"]["relative_temperature"] is not None
+    by_preset = " (set by the [solvent] preset)" if preset else ""
+    if nb["potential"] != "lennard_jones":
+        raise InputError(f"{where} is for potential = 'lennard_jones' only, got '{nb['potential']}'{by_preset}; "
+                         "set tail_correction = false")
+    if nb["shift"]:
+        raise InputError(f"{where} needs shift = false{by_preset}: the analytic correction completes the truncated, "
+                         "unshifted potential; for a shifted one the energy would also need the shift times the "
+                         "pair distribution inside the cutoff, which has no closed form")
+    if s["box"]["kind"] != "periodic":
+        raise InputError(f"{where} needs [box] kind = 'periodic': the correction assumes a uniform fluid beyond "
+                         "the cutoff, which an open box is not")
 
 
 def _check_sampling(s, source):

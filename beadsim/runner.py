@@ -60,7 +60,7 @@ TABLE_FILE = "observables.csv"
 CHECKPOINT_FILE = "checkpoint.npz"
 SUMMARY_FILE = "summary.json"
 
-#: Scalar table columns: name -> unit.
+#: Scalar table columns: name -> unit (or meaning).
 COLUMNS = {
     "time": "tau",
     "production": "1 for production rows (step > equilibration_steps, the steps with frames), 0 for "
@@ -102,7 +102,8 @@ def build_simulation(settings):
                           seed=settings["run"]["seed"])
     integrator = make_integrator(dyn["integrator"], timestep=dyn["timestep"], temperature=dyn["temperature"],
                                  friction=dyn["friction"])
-    sim = Simulation(system, build_forcefield(settings), integrator, seed=settings["run"]["seed"], skin=dyn["skin"])
+    sim = Simulation(system, build_forcefield(settings), integrator, seed=settings["run"]["seed"], skin=dyn["skin"],
+                     tail_correction=settings["nonbonded"]["tail_correction"])
     sm = settings["sampling"]
     if sm["method"] == "hybrid":
         HybridSampler(sim, segment_steps=sm["segment_steps"], pivot_moves=sm["pivot_moves_per_segment"],

@@ -5,7 +5,7 @@ import numpy as np
 from .._validate import positive, positive_int
 from ..errors import InputError, MinimizationError
 from ..kernels.forces import total_forces
-from ..model.potentials import ForceField
+from ..model.potentials import ForceField, LennardJones
 from ..model.system import System
 from .integrators import Integrator
 from .neighbors import NeighborList
@@ -25,6 +25,12 @@ class Simulation:
         numbers is ``(seed, step_count)``).
     skin : float
         Verlet-list skin, sigma.
+    tail_correction : bool
+        Add the analytic long-range corrections of a Lennard-Jones pair potential
+        truncated without shift (:meth:`~beadsim.model.potentials.LennardJones.tail_correction`)
+        to the pair energy and the pressure of :meth:`observables`. Only for a
+        periodic box with one such potential between all bead types: the
+        correction assumes a uniform fluid beyond the cutoff.
 
     Examples
     --------
@@ -35,7 +41,7 @@ class Simulation:
     >>> sim.run(1000)                                   # doctest: +SKIP
     """
 
-    def __init__(self, system, forcefield, integrator, seed=0, skin=0.4):
+    def __init__(self, system, forcefield, integrator, seed=0, skin=0.4, tail_correction=False):
         if not isinstance(system, System):
             raise InputError(f"system: expected a beadsim System, got {type(system).__name__}")
         if not isinstance(forcefield, ForceField):
@@ -48,6 +54,7 @@ class Simulation:
         self.seed = int(seed)
         self.noise_seed = self.seed % 2 ** 64
         self.compiled = forcefield.compile(system)
+        self.tail_energy, self.tail_pressure = _tail_terms(system, forcefield, tail_correction)
         self.box_lengths = system.box.kernel_lengths()
         self.neighbors = NeighborList(system.types, self.compiled.cutoff, positive(skin, "skin"),
                                       self.compiled.excl_start, self.compiled.excl, system.box.lengths)
@@ -110,16 +117,35 @@ class Simulation:
         """Energies (epsilon), kinetic temperature (epsilon/k_B) and, in a periodic box, pressure.
 
         The kinetic temperature counts 3 n degrees of freedom (Langevin dynamics
-        does not conserve momentum). Pressure is (2 K + W) / (3 V) with W the
-        virial sum of r_ij . f_ij (no tail correction).
+        does not conserve momentum). The pressure is the virial route,
+
+            p = n kT / V + W / (3 V)  (+ the tail correction if enabled),
+
+        with W the virial sum of r_ij . f_ij over pairs and bonds (and bending
+        terms). kT is the thermostat temperature for thermostatted schemes
+        (baoab, brownian) and the kinetic temperature for the rest (verlet):
+        configurations are sampled at the thermostat temperature, whereas the
+        kinetic temperature of a discretised scheme is off by O(dt^2). For BAOAB
+        (Leimkuhler and Matthews, Appl. Math. Res. Express 2013, 34) a harmonic
+        mode of angular frequency omega has exact configurations but, at the end
+        of a step, kinetic temperature kT (1 - (omega dt)^2 / 4), derived in
+        ``tests/unit/engine/test_pressure.py``; Brownian dynamics has no velocities.
+        With ``tail_correction`` the pair energy (and so the potential and total
+        energies) includes n u_tail and the pressure p_tail.
 
         Returns
         -------
         dict of float
+            ``pair_energy``, ``bond_energy``, ``bending_energy``, ``potential_energy``,
+            ``kinetic_energy``, ``total_energy`` (epsilon), ``kinetic_temperature``
+            (epsilon/k_B), ``virial`` (W, epsilon, without tail correction) and, in a
+            periodic box, ``pressure`` (epsilon/sigma^3).
         """
         s = self.system
         e_pair, e_bond, e_bend, virial = (float(x) for x in self.raw_energies)
+        e_pair += s.n_beads * self.tail_energy
         kinetic = s.kinetic_energy()
+        kinetic_temperature = 2.0 * kinetic / (3.0 * s.n_beads)
         potential = e_pair + e_bond + e_bend
         out = {
             "pair_energy": e_pair,
@@ -128,11 +154,12 @@ class Simulation:
             "potential_energy": potential,
             "kinetic_energy": kinetic,
             "total_energy": potential + kinetic,
-            "kinetic_temperature": 2.0 * kinetic / (3.0 * s.n_beads),
+            "kinetic_temperature": kinetic_temperature,
             "virial": virial,
         }
         if s.box.periodic:
-            out["pressure"] = (2.0 * kinetic + virial) / (3.0 * s.box.volume)
+            kT = self.integrator.temperature if self.integrator.thermostatted else kinetic_temperature
+            out["pressure"] = (s.n_beads * kT + virial / 3.0) / s.box.volume + self.tail_pressure
         return out
 
     def state_arrays(self):
@@ -167,6 +194,22 @@ class Simulation:
         self.compute_forces()
         if self.hybrid is not None:
             self.hybrid.restore(arrays)
+
+
+def _tail_terms(system, forcefield, enabled):
+    """Tail corrections (energy per bead, epsilon; pressure, epsilon/sigma^3), or zeros when not ``enabled``."""
+    if not isinstance(enabled, (bool, np.bool_)):
+        raise InputError(f"tail_correction: expected True or False, got {enabled!r}")
+    if not enabled:
+        return 0.0, 0.0
+    pair = forcefield.pair
+    if not system.box.periodic:
+        raise InputError("tail_correction: needs a periodic box (the correction assumes a uniform fluid beyond "
+                         "the cutoff); an open box has no density")
+    if type(pair) is not LennardJones or pair.shift:
+        raise InputError(f"tail_correction: is for one Lennard-Jones potential truncated without shift between "
+                         f"all bead types, got {pair!r}; use LennardJones(..., shift=False) or leave it off")
+    return pair.tail_correction(system.n_beads / system.box.volume)
 
 
 def _coincident_message(system):

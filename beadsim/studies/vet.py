@@ -264,11 +264,13 @@ def single_chain_settings(settings, timestep=None):
     Returns
     -------
     dict
-        A deep copy; a Verlet integrator is replaced by BAOAB, presets already applied are dropped.
+        A deep copy; a Verlet integrator is replaced by BAOAB, presets already applied are dropped, and
+        so is a Lennard-Jones tail correction (a term of a uniform fluid, not of one chain).
     """
     s = copy.deepcopy(settings)
     s["chains"].update(count=1, length=[settings["chains"]["length"][0]])
     s["box"]["kind"] = "open"
+    s["nonbonded"]["tail_correction"] = False
     s["solvent"] = {key: None for key in s["solvent"]}
     if s["dynamics"]["integrator"] == "verlet":
         s["dynamics"]["integrator"] = "baoab"

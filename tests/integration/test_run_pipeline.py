@@ -165,6 +165,49 @@ def test_run_starts_from_maxwell_boltzmann_velocities_at_the_set_temperature(wri
     assert abs(start["kinetic_temperature"] - 1.4 * chi2(dof).mean() / dof) < 4 * 1.4 * chi2(dof).std() / dof
 
 
+LJ_MELT = ("[chains]\nlength = 4\ncount = 50\n\n[box]\nkind = \"periodic\"\ndensity = 0.5\n\n"
+           "[nonbonded]\npotential = \"lennard_jones\"\ncutoff = 2.5\nshift = false\n{extra}\n"
+           "[run]\nseed = 8\nminimize = false\nequilibration_steps = 20\nproduction_steps = 20\n\n"
+           "[output]\nframe_interval = 20\ntable_interval = 10\ncheckpoint_interval = 20\n")
+
+
+def test_tail_correction_adds_the_allen_tildesley_terms_to_the_table(write_input, run_cli, tmp_path):
+    """Two runs of a truncated LJ melt (200 beads, rho = 0.5, rc = 2.5, eps = sigma = 1), with and without
+    ``tail_correction``: the forces do not change, so the runs are the same and every row differs by
+    N U_tail / N in pair_energy and p_tail in pressure, written out from Allen and Tildesley, Computer
+    Simulation of Liquids, 2nd ed. 2017, section 2.8 (1987 edition eqs. 2.144-2.145); to the rounding of
+    the larger value."""
+    tables = []
+    for name, extra in (("plain", ""), ("corrected", "tail_correction = true\n")):
+        status, _, err = run_cli("run", write_input(LJ_MELT.format(extra=extra), f"{name}.toml"), "--out",
+                                 tmp_path / name, "--quiet")
+        assert status == 0, err
+        tables.append(pd.read_csv(tmp_path / name / "observables.csv"))
+    plain, corrected = tables
+    rho, x = 0.5, 1.0 / 2.5
+    u_tail = 8.0 / 3.0 * np.pi * rho * (x ** 9 / 3.0 - x ** 3)
+    p_tail = 16.0 / 3.0 * np.pi * rho ** 2 * (2.0 / 3.0 * x ** 9 - x ** 3)
+    np.testing.assert_array_equal(plain["kinetic_energy"], corrected["kinetic_energy"])
+    for column, exact in (("pair_energy", 200 * u_tail), ("pressure", p_tail)):
+        rounding = 4 * np.finfo(float).eps * np.maximum(abs(plain[column]), abs(corrected[column]))
+        assert np.all(np.abs(corrected[column] - plain[column] - exact) <= rounding + 1e-14 * abs(exact)), column
+
+
+@pytest.mark.parametrize("change, fragments", [
+    ("shift = false", ["tail_correction = true needs shift = false", "closed form"]),
+    ("potential = \"lennard_jones\"", ["tail_correction = true is for potential = 'lennard_jones' only"]),
+    ("kind = \"periodic\"", ["tail_correction = true needs [box] kind = 'periodic'"]),
+])
+def test_tail_correction_is_refused_where_the_formula_does_not_hold(change, fragments, write_input, run_cli,
+                                                                   tmp_path):
+    replacement = {"shift = false": "shift = true", "potential = \"lennard_jones\"": "potential = \"wca\"",
+                   "kind = \"periodic\"": "kind = \"open\""}[change]
+    path = write_input(_replace(LJ_MELT.format(extra="tail_correction = true\n"), change, replacement))
+    status, stdout, err = run_cli("run", path, "--out", tmp_path / "out", "--quiet")
+    assert status == 2
+    _assert_one_paragraph_error(err, str(path), "[nonbonded]", *fragments)
+
+
 # ---------------------------------------------------------------------------------------------------------------
 # 2. the trajectory as mdtraj sees it
 # ---------------------------------------------------------------------------------------------------------------
