@@ -15,10 +15,10 @@ its pivot count there) and runs for a fixed CPU budget, recording Rg^2 every rou
 * ``dynamics``: Langevin dynamics alone.
 
 Figure of merit (:mod:`beadsim.analysis.efficiency`): rounds / (g x CPU seconds), g the statistical
-inefficiency of the Rg^2 series in rounds, taken as the larger of the autocorrelation estimate
-(:func:`~beadsim.analysis.stats.statistical_inefficiency`) and the blocking estimate
-(:func:`~beadsim.analysis.stats.blocking`), so the rate errs low. A run shorter than
-:data:`RESOLVED_RUNS` g cannot resolve g: its rate is flagged as an upper bound.
+inefficiency of the Rg^2 series in rounds, taken as the larger of the autocorrelation and blocking
+estimates with its standard error (:func:`~beadsim.analysis.stats.inefficiency_estimate`, shared with
+``summary.json`` of every run), so the rate leans low. A run shorter than :data:`RESOLVED_RUNS` g
+cannot resolve g: its rate is flagged as an upper bound.
 """
 
 import math
@@ -27,7 +27,7 @@ import time
 import numpy as np
 from scipy.stats import linregress
 
-from .analysis.stats import blocking, statistical_inefficiency, summarize
+from .analysis.stats import inefficiency_estimate, summarize
 from .engine.hybrid import HybridSampler
 from .engine.integrators import BAOABLangevin
 from .engine.simulation import Simulation
@@ -98,8 +98,9 @@ def measure_sampler(system, temperature, name, cpu_seconds, warmup_rounds, seed=
     Returns
     -------
     dict
-        rounds (kept) and rounds_discarded, cpu_seconds (all of production), pivot acceptance and pivots per round, g (both estimates, rounds),
-        independent samples, samples per CPU-second, ``upper_bound`` and mean Rg^2 with its error.
+        rounds (kept) and rounds_discarded, cpu_seconds (all of production), pivot acceptance and pivots per round,
+        g (both estimates, rounds, and the standard error of the larger), independent samples, samples per
+        CPU-second with its standard error, ``upper_bound`` and mean Rg^2 with its error.
     """
     sim = _simulation(system.copy(), temperature, seed)
     sampler = _sampler(sim, name, warmup_rounds * SEGMENT_STEPS)
@@ -117,16 +118,17 @@ def measure_sampler(system, temperature, name, cpu_seconds, warmup_rounds, seed=
     cpu = time.process_time() - started
     start = summarize(np.array(series)).equilibration_index  # rounds still relaxing are not counted
     series = np.array(series[start:])
-    g_acf = statistical_inefficiency(series)
-    blocks = blocking(series)
-    g_blk = None if blocks.error is None else float(blocks.error ** 2 * series.size / series.var())
-    g = max(g_acf, g_blk or 0.0, 1.0)
+    ineff = inefficiency_estimate(series)
+    g = ineff.value
     out = {"sampler": name, "rounds": int(series.size), "rounds_discarded": int(start), "cpu_seconds": round(cpu, 2),
            "ms_per_round": round(1e3 * cpu / (series.size + start), 3),
-           "g_autocorrelation": round(float(g_acf), 2), "g_blocking": g_blk and round(g_blk, 2),
+           "g_autocorrelation": round(ineff.autocorrelation, 2),
+           "g_blocking": None if ineff.blocking is None else round(ineff.blocking, 2),
+           "g_error": round(ineff.error, 2),
            "independent_samples": round(series.size / g, 1),
            "per_cpu_second": series.size / g / cpu,
-           "upper_bound": bool(series.size < RESOLVED_RUNS * g or g_blk is None),
+           "per_cpu_second_error": series.size / g / cpu * ineff.error / g,
+           "upper_bound": bool(series.size < RESOLVED_RUNS * g or ineff.blocking is None),
            "rg2_mean": float(series.mean()), "rg2_error": float(series.std(ddof=1) * math.sqrt(g / series.size))}
     if sampler is not None:
         pivots = sampler.acceptance()["pivot"]

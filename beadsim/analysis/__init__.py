@@ -29,13 +29,14 @@ from .scattering import (GuinierFit, StructureFactor, compute_form_factor, compu
 from .size import (Shape, compute_end_to_end, compute_hydrodynamic_radius, compute_rg, compute_shape,
                    end_to_end_distance, end_to_end_vector, gyration_tensor, hydrodynamic_radius,
                    mean_square_ratio, radius_of_gyration, shape_descriptors)
-from .stats import (Blocking, Summary, blocking, detect_equilibration, effective_sample_count,
-                    statistical_inefficiency, summarize)
+from .stats import (Blocking, Inefficiency, Summary, blocking, detect_equilibration, effective_sample_count,
+                    inefficiency_estimate, statistical_inefficiency, summarize)
 from .trajectory import find_chains, is_periodic, load_trajectory, trajectory_positions, unwrap_chains
 from .virial import SecondVirial, compute_second_virial
 
 __all__ = [
-    "Blocking", "DiffusionFit", "ExponentFit", "GuinierFit", "PersistenceFit", "PowerLawFit", "RelaxationTime",
+    "Blocking", "DiffusionFit", "ExponentFit", "GuinierFit", "Inefficiency", "PersistenceFit", "PowerLawFit",
+    "RelaxationTime",
     "SecondVirial", "Shape", "StructureFactor", "Summary", "analyze_file", "blocking", "bond_angles",
     "bond_correlation", "bond_lengths", "center_of_mass_msd", "center_of_mass_paths", "compute_bond_angles",
     "compute_bond_lengths", "compute_end_to_end", "compute_end_to_end_autocorrelation", "compute_form_factor",
@@ -44,7 +45,8 @@ __all__ = [
     "compute_structure_factor", "debye_function", "detect_equilibration", "diffusion_coefficient",
     "distribution", "effective_exponent", "effective_sample_count", "end_to_end_distance", "end_to_end_vector",
     "find_chains", "fit_power_law", "form_factor", "format_table", "guinier_rg", "gyration_tensor",
-    "histogram_error_bound", "hydrodynamic_radius", "inner_bead_msd", "internal_distances", "is_periodic",
+    "histogram_error_bound", "hydrodynamic_radius", "inefficiency_estimate", "inner_bead_msd", "internal_distances",
+    "is_periodic",
     "kratky", "load_trajectory", "mean_square_displacement", "mean_square_ratio", "nu_from_chain_size",
     "nu_from_form_factor", "nu_from_internal_distances", "persistence_length", "radius_of_gyration",
     "relaxation_time", "shape_descriptors", "statistical_inefficiency", "structure_factor", "summarize",

@@ -1,17 +1,21 @@
 """Sampling efficiency: effectively independent samples of a quantity per CPU-second.
 
 With samples ``interval`` steps apart and statistical inefficiency ``g``
-(:func:`beadsim.analysis.stats.statistical_inefficiency`; ``g = 2 tau_int`` in
-sampling intervals, tau_int the integrated autocorrelation time), one
-independent sample costs ``g * interval`` steps, so
+(``g = 2 tau_int`` in sampling intervals, tau_int the integrated autocorrelation
+time), one independent sample costs ``g * interval`` steps, so
 
     independent samples per CPU-second = (steps per CPU-second) / (g * interval).
 
 This is the figure of merit for choosing between samplers of the same
 equilibrium distribution (e.g. Janke, in Quantum Simulations of Complex
-Many-Body Systems, NIC Series 10, 423, 2002). When ``g`` is close to 1 the samples
-are already uncorrelated and the rate is only a lower bound (sample more often
-to resolve it).
+Many-Body Systems, NIC Series 10, 423, 2002). g is the larger of the
+autocorrelation and blocking estimates (:func:`beadsim.analysis.stats.inefficiency_estimate`),
+so the rate leans low, but it is an estimate, not a bound: both estimates of g
+are low when the series is not much longer than its correlation time. Its
+standard error is that of g (the rate is proportional to 1/g). When g < 2 the
+samples are further apart than about the correlation time: the series cannot
+tell how many more independent samples the sampler would give if sampled more
+often, so the figure then understates the sampler.
 
 Lower bound on g from runs shorter than the correlation time
 ------------------------------------------------------------
@@ -43,14 +47,14 @@ import numpy as np
 from .._validate import as_array, positive, positive_int
 from ..errors import AnalysisError, InputError
 from ._common import autocorrelation_sum
-from .stats import summarize
+from .stats import inefficiency_estimate, summarize
 
 RESOLVED_INEFFICIENCY = 2.0
 """Below this g the correlation time is not resolved by the sampling interval (common practice)."""
 
 
 def independent_samples_rate(series, interval_steps, steps_per_cpu_second):
-    """Effectively independent samples of ``series`` per CPU-second.
+    """Effectively independent samples of ``series`` per CPU-second, an estimate with its standard error.
 
     Parameters
     ----------
@@ -65,17 +69,23 @@ def independent_samples_rate(series, interval_steps, steps_per_cpu_second):
     -------
     dict
         ``samples``, ``equilibration_index`` (first sample used, by
-        :func:`~beadsim.analysis.stats.summarize`), ``statistical_inefficiency``
-        (in samples), ``autocorrelation_steps`` (``g * interval / 2``, the
+        :func:`~beadsim.analysis.stats.summarize`), ``statistical_inefficiency`` and
+        ``statistical_inefficiency_error`` (g in samples, the larger estimate, and its
+        standard error), ``inefficiency_source`` (``"autocorrelation"`` or
+        ``"blocking"``), ``g_autocorrelation``, ``g_blocking`` (None without a
+        blocking plateau), ``autocorrelation_steps`` (``g * interval / 2``, the
         integrated autocorrelation time in steps), ``independent_samples``,
-        ``per_cpu_second`` and ``lower_bound`` (True when g < 2); the rate entries
-        are None with a ``reason`` when the series cannot be analysed.
+        ``per_cpu_second`` and ``per_cpu_second_error`` (the estimate and its
+        standard error, from g's), ``correlation_resolved`` (False when g < 2, see
+        the module notes) and ``reason`` (why entries are None, or a caution); the
+        rate entries are None when the series cannot be analysed.
     """
     interval = positive(interval_steps, "interval_steps")
     speed = positive(steps_per_cpu_second, "steps_per_cpu_second")
     out = {"samples": None, "equilibration_index": None, "statistical_inefficiency": None,
-           "autocorrelation_steps": None, "independent_samples": None, "per_cpu_second": None,
-           "lower_bound": None, "reason": None}
+           "statistical_inefficiency_error": None, "inefficiency_source": None, "g_autocorrelation": None,
+           "g_blocking": None, "autocorrelation_steps": None, "independent_samples": None, "per_cpu_second": None,
+           "per_cpu_second_error": None, "correlation_resolved": None, "reason": None}
     try:
         s = summarize(series, min_independent=1)
     except AnalysisError as exc:
@@ -85,12 +95,19 @@ def independent_samples_rate(series, interval_steps, steps_per_cpu_second):
     if s.statistical_inefficiency is None:
         out["reason"] = s.reason
         return out
-    g = s.statistical_inefficiency
-    out.update(statistical_inefficiency=g, autocorrelation_steps=0.5 * g * interval,
-               independent_samples=s.n_independent, per_cpu_second=speed / (g * interval),
-               lower_bound=bool(g < RESOLVED_INEFFICIENCY), reason=s.reason)
-    if not math.isfinite(out["per_cpu_second"]):
-        out["per_cpu_second"] = None
+    used = np.asarray(series, dtype=np.float64)[s.equilibration_index:]
+    g = inefficiency_estimate(used)
+    rate = speed / (g.value * interval)
+    notes = [s.reason] if s.reason else []
+    if g.blocking is None:
+        notes.append("blocking found no plateau (series short for its correlation time): g may be low")
+    finite = math.isfinite(rate)
+    out.update(statistical_inefficiency=g.value, statistical_inefficiency_error=g.error,
+               inefficiency_source=g.source, g_autocorrelation=g.autocorrelation, g_blocking=g.blocking,
+               autocorrelation_steps=0.5 * g.value * interval, independent_samples=used.size / g.value,
+               per_cpu_second=rate if finite else None,
+               per_cpu_second_error=rate * g.error / g.value if finite else None,
+               correlation_resolved=bool(g.value >= RESOLVED_INEFFICIENCY), reason="; ".join(notes) or None)
     return out
 
 

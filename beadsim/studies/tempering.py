@@ -810,7 +810,9 @@ def _rate(rg2, ladder, cpu_seconds, steps):
     if not cpu_seconds or not steps:
         return {"independent_per_cpu_second": None}
     rate = independent_samples_rate(rg2, ladder["sample_interval"], steps / cpu_seconds)
-    return {"independent_per_cpu_second": rate["per_cpu_second"], "rate_is_lower_bound": rate["lower_bound"]}
+    return {"independent_per_cpu_second": rate["per_cpu_second"],
+            "independent_per_cpu_second_error": rate["per_cpu_second_error"],
+            "correlation_resolved": rate["correlation_resolved"]}
 
 
 def temper(ladder_path, out, *, workers=None, cluster=None, progress=True):

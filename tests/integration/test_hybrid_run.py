@@ -50,7 +50,8 @@ def test_plain_run_reports_efficiency_without_caution(tmp_path, write_input, run
     assert status == 0
     sampling = _summary(tmp_path / "p")["sampling"]
     assert sampling["method"] == "dynamics" and "note" not in sampling and "acceptance" not in sampling
-    assert sampling["rg_independent_samples"]["per_cpu_second"] > 0
+    rate = sampling["rg_independent_samples"]
+    assert rate["per_cpu_second"] > 0 and 0 < rate["per_cpu_second_error"] < rate["per_cpu_second"]
 
 
 def test_extended_hybrid_run_matches_uninterrupted_run(tmp_path, write_input):

@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 
 from beadsim.analysis.efficiency import (autocorrelation_from_starts, correlation_from_starts,
-                                         inefficiency_partial_sums)
+                                         independent_samples_rate, inefficiency_partial_sums)
 from beadsim.errors import AnalysisError, InputError
 
 from test_analysis_stats import ar1
@@ -101,3 +101,39 @@ def test_correlation_from_starts_errors_are_calibrated_for_runs_shorter_than_the
     assert abs(z.mean()) < 0.25
     assert abs(np.mean(plain) - exact) < 4 * np.std(plain) / np.sqrt(n_studies)
     assert np.median(spread_ratio) > 3
+
+
+def test_independent_samples_rate_matches_ar1_within_its_error_and_never_exceeds_the_blocking_figure():
+    # seed 21, phi = 0.8 (g = 9 exactly), n = 2^16 samples 10 steps apart, 1000 steps per CPU-second: exact
+    # rate 1000 / (9 x 10). The reported g and rate must lie within 4 of their own standard errors of the
+    # exact values (the autocorrelation estimate's Madras-Sokal error is about 4.5 % here, the one checked
+    # for calibration in test_analysis_stats), and the rate must not exceed the rate from either estimate of g.
+    phi, n, interval, speed = 0.8, 2 ** 16, 10, 1000.0
+    g_exact = (1 + phi) / (1 - phi)
+    rate = independent_samples_rate(ar1(np.random.default_rng(21), phi, n)[0], interval, speed)
+    assert rate["samples"] == n and rate["correlation_resolved"]
+    assert abs(rate["statistical_inefficiency"] - g_exact) < 4 * rate["statistical_inefficiency_error"]
+    assert abs(rate["per_cpu_second"] - speed / (g_exact * interval)) < 4 * rate["per_cpu_second_error"]
+    assert rate["per_cpu_second_error"] / rate["per_cpu_second"] < 0.1
+    for g in (rate["g_autocorrelation"], rate["g_blocking"]):
+        assert rate["per_cpu_second"] <= speed / (g * interval)
+
+
+def test_a_slow_component_the_autocorrelation_sum_cuts_off_is_taken_from_blocking():
+    # seed 3: anti-correlated AR(1) (phi = -0.5, g = 1/3) plus a weak slow one (phi = 0.99, variance 2 % of the
+    # first, g = 199), n = 2^16. The sum of independent stationary series has g = (v1 g1 + v2 g2) / (v1 + v2)
+    # = 4.23 exactly (the spectral densities at zero frequency add). The autocorrelation sum stops at the first
+    # lag past 3 where it is <= 0 (lag 5 here, before the slow part shows), so it misses the slow part; the
+    # blocking estimate sees it (more than 4 of its standard errors above the autocorrelation estimate), and
+    # the reported g is the larger one. Blocking's plateau choice is low for slow components (module notes of
+    # beadsim.analysis.stats; this seed: 3.16 +- 0.40), so only the upper side is held to 4 standard errors.
+    n, v1 = 2 ** 16, 1 / (1 - 0.25)
+    v2 = 0.02 * v1
+    rng = np.random.default_rng(3)
+    x = ar1(rng, -0.5, n)[0] + ar1(rng, 0.99, n)[0] * np.sqrt(v2 * (1 - 0.99 ** 2))
+    g_exact = (v1 / 3 + v2 * 199) / (v1 + v2)
+    rate = independent_samples_rate(x, 1, 1.0)
+    assert rate["inefficiency_source"] == "blocking" and rate["g_autocorrelation"] < 1.5
+    assert rate["statistical_inefficiency"] == rate["g_blocking"]
+    assert rate["statistical_inefficiency"] < g_exact + 4 * rate["statistical_inefficiency_error"]
+    assert rate["g_blocking"] - rate["g_autocorrelation"] > 4 * rate["statistical_inefficiency_error"]
