@@ -40,12 +40,12 @@ import numpy as np
 
 from . import __version__
 from .config import load_toml, non_default_settings, settings_hash, to_toml
-from .engine.health import guarded
+from .engine.health import diagnose, guarded
 from .engine.hybrid import DYNAMICS_CAUTION, HybridSampler
 from .engine.integrators import make_integrator
 from .engine.loop import snapshot
 from .engine.simulation import Simulation
-from .errors import BeadsimError, InputError
+from .errors import BeadsimError, InputError, InstabilityError
 from .io import ScalarTable, make_topology, read_checkpoint, truncate_table, write_checkpoint
 from .io._atomic import remove_leftovers
 from .io.parts import PartedTrajectory, parts_folder
@@ -323,6 +323,13 @@ def run(settings, out, *, resume=False, overwrite=False, progress=True, allow_lo
         if settings["run"]["minimize"]:
             sim.minimize()
         sim.system.velocities[:] = sim.integrator.start_velocities(sim.system.masses, settings["run"]["seed"])
+        problem = diagnose(sim)  # the start state is written too, so it is checked like every later one
+        if problem is not None:
+            drawn = (f"; the start velocities are Maxwell-Boltzmann at kT = {sim.integrator.temperature}"
+                     if sim.system.velocities.any() else "")
+            raise InstabilityError(f"the start state fails the stability checks at step 0: {problem.what} (bead "
+                                   f"{problem.bead}, largest force term: {problem.term}); lower the timestep "
+                                   f"({sim.integrator.timestep} tau{drawn}) or minimise the start structure", step=0)
     recorder = _Recorder(sim, settings, out, manifest)
     start_step, started, cpu_started = sim.step_count, time.perf_counter(), time.process_time()
     bar = _progress(total, start_step, progress)
