@@ -67,6 +67,10 @@ def bond_angles(positions, chains):
     return np.concatenate(angles, axis=1)
 
 
+EQUAL_SAMPLES = 1e-6
+"""Relative spread below which :func:`distribution` treats its samples as equal (rigid bonds)."""
+
+
 def distribution(values, bins=100, value_range=None):
     """Normalised histogram (probability density) of bond lengths or angles.
 
@@ -77,7 +81,8 @@ def distribution(values, bins=100, value_range=None):
     bins : int
         Number of bins.
     value_range : (float, float), optional
-        Histogram range; default the sample range.
+        Histogram range; default the sample range, or +- :data:`EQUAL_SAMPLES` (relative) about the
+        samples when they are all equal to rounding (rigid bonds).
 
     Returns
     -------
@@ -89,6 +94,9 @@ def distribution(values, bins=100, value_range=None):
     if values.size == 0 or (value_range is None and not np.all(np.isfinite(values))):
         raise AnalysisError("values: need samples, all finite unless value_range is given (the histogram's range "
                             "comes from the samples)")
+    if value_range is None and np.ptp(values) <= EQUAL_SAMPLES * max(1.0, float(np.abs(values).max())):
+        centre, half = float(values.mean()), EQUAL_SAMPLES * max(1.0, float(np.abs(values).max()))
+        value_range = (centre - half, centre + half)  # all samples equal (rigid bonds): a narrow range about them
     try:
         density, edges = np.histogram(values, bins=bins, range=value_range, density=True)
     except (TypeError, ValueError) as exc:
@@ -126,6 +134,11 @@ def bond_correlation(positions, chains):
     return mean / mean[0]
 
 
+STIFFNESS_MIN_CORRELATION = float(np.exp(-1.0))
+"""Smallest neighbouring-bond correlation C(1) for which :func:`persistence_length` quotes a value: below it
+the persistence length is under one bond and the exponential has no range to be fitted over."""
+
+
 @dataclass(frozen=True)
 class PersistenceFit:
     """Persistence length from the decay of the bond-vector correlation.
@@ -135,7 +148,8 @@ class PersistenceFit:
     length : float
         ``l_p = <b> / decay`` with ``C(s) = exp(-decay * s)``, unit L.
     error : float
-        Standard error from the fit residuals (NaN if the fit had two points).
+        Standard error from the fit residuals (treats the separations as independent, which they are
+        not; :mod:`beadsim.analysis.report` gives a block-jackknife error instead).
     s_max : int
         Largest separation used.
     """
@@ -167,8 +181,9 @@ def persistence_length(correlation, mean_bond_length, cutoff=np.exp(-2.0)):
     Raises
     ------
     AnalysisError
-        Fewer than two values C(0), C(1), or C(1) <= 0 (flexible chain with
-        anticorrelated neighbouring bonds): no exponential decay to fit.
+        Fewer than two values C(0), C(1); C(1) <= 1/e (:data:`STIFFNESS_MIN_CORRELATION`: no bending
+        stiffness worth a persistence length); C(s) never falls below ``cutoff`` (contour too short for
+        the decay); or fewer than three points above the cutoff.
     InputError
         ``correlation`` not a finite 1-D array, ``mean_bond_length`` not a finite
         number > 0, or ``cutoff`` outside (0, 1).
@@ -181,20 +196,21 @@ def persistence_length(correlation, mean_bond_length, cutoff=np.exp(-2.0)):
     if c.size < 2:
         raise AnalysisError(f"persistence length undefined: correlation holds {c.size} value(s), "
                             f"C(0) and at least C(1) are needed (chains of three or more beads)")
-    if c[1] <= 0:
-        raise AnalysisError("persistence length undefined: neighbouring bonds are not positively correlated "
-                            "(C(1) <= 0), so the correlation shows no exponential decay")
+    if c[1] <= STIFFNESS_MIN_CORRELATION:
+        raise AnalysisError(f"no persistence length worth quoting: neighbouring bonds correlate with C(1) = "
+                            f"{c[1]:.3g} <= 1/e, a persistence length under one bond (a freely-jointed chain has "
+                            "C(1) = 0): the chain has no bending stiffness to speak of")
     below = np.flatnonzero(c <= cutoff)
-    s_max = max(1, (int(below[0]) if below.size else c.size) - 1)
+    if not below.size:
+        raise AnalysisError(f"persistence length not resolved: C(s) stays above {cutoff:.3g} over the whole chain "
+                            f"(C = {c[-1]:.3g} at s = {c.size - 1}), so the contour is too short to show the decay")
+    s_max = int(below[0]) - 1
+    if s_max < 2:
+        raise AnalysisError(f"persistence length not resolved: C(s) falls below {cutoff:.3g} at s = {s_max + 1}, "
+                            "leaving fewer than three points to fit")
     s = np.arange(s_max + 1, dtype=np.float64)
-    if s_max == 1:
-        decay, error = -np.log(c[1]), float("nan")
-    else:
-        slope, _, cov, _ = line_fit(s, np.log(c[:s_max + 1]), what="persistence-length fit")
-        decay, error = -slope, np.sqrt(cov[0, 0])
-    if not decay > 0:  # bonds fully correlated at every separation: no decay, no finite length
-        raise AnalysisError("persistence length undefined: the bond correlation does not decay (C(s) = 1), "
-                            "as for a rigid rod")
+    slope, _, cov, _ = line_fit(s, np.log(c[:s_max + 1]), what="persistence-length fit")
+    decay, error = -slope, np.sqrt(cov[0, 0])
     length = mean_bond_length / decay
     return PersistenceFit(length=float(length), error=float(length * error / decay), s_max=int(s_max))
 

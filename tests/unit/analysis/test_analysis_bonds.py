@@ -65,9 +65,18 @@ def test_persistence_length_of_exact_geometric_decay():
     assert fit.s_max == int(np.floor(2 / -np.log(c)))  # last s with c^s > exp(-2)
 
 
-def test_persistence_length_refuses_anticorrelated_bonds():
-    with pytest.raises(AnalysisError, match="C\\(1\\) <= 0"):
-        persistence_length(np.array([1.0, -0.1, 0.02]), 1.0)
+@pytest.mark.parametrize("correlation, message", [
+    # freely jointed: C(1) = 0 exactly (independent bond directions), here with sampling noise
+    ([1.0, 0.01, -0.02, 0.0], r"no persistence length worth quoting: .*C\(1\) = 0.01 <= 1/e"),
+    ([1.0, -0.1, 0.02], r"C\(1\) = -0.1 <= 1/e"),
+    # rigid rod: C(s) = 1 at every s, no decay within the chain
+    (np.ones(20), r"not resolved: C\(s\) stays above 0.135 over the whole chain"),
+    # stiff at one bond, lost at two: only s = 0, 1 lie above exp(-2)
+    ([1.0, 0.5, 0.1, 0.05], r"falls below 0.135 at s = 2, leaving fewer than three points"),
+])
+def test_persistence_length_is_refused_without_stiffness_or_contour(correlation, message):
+    with pytest.raises(AnalysisError, match=message):
+        persistence_length(np.asarray(correlation, dtype=float), 1.0)
 
 
 @pytest.mark.parametrize("correlation, mean_bond_length, kwargs, message", [
@@ -93,3 +102,10 @@ def test_distribution_is_a_normalised_density():
     # numpy.histogram(density=True) integrates to one over the range
     centres, density = distribution(np.random.default_rng(74).normal(size=5000), bins=40)
     assert np.isclose(np.sum(density) * (centres[1] - centres[0]), 1.0)
+
+
+def test_distribution_of_equal_samples_is_one_narrow_peak():
+    # rigid bonds: lengths equal to rounding; the density integrates to one and peaks at the common value
+    centres, density = distribution(1.0 + 1e-16 * np.arange(50), bins=80)
+    width = centres[1] - centres[0]
+    assert np.isclose(np.sum(density) * width, 1.0) and abs(centres[np.argmax(density)] - 1.0) <= width
