@@ -163,6 +163,72 @@ def diffusion_coefficient(lag_times, msd, fit_range=None):
                         t_min=float(t[use][0]), t_max=float(t[use][-1]))
 
 
+SEGMENT_RELAXATIONS = 10
+"""A segment of :func:`diffusion_by_segments` spans at least this many relaxation times (common practice:
+the MSD of the centre of mass is linear only beyond the chain's relaxation time, and the fit window of
+each segment runs from one relaxation time to half the segment)."""
+
+
+def diffusion_by_segments(times, paths, relaxation, max_segments=16, min_segments=8):
+    """Diffusion coefficient from independent time segments, or an AnalysisError saying why not.
+
+    The trajectory is cut into B equal segments of at least :data:`SEGMENT_RELAXATIONS` relaxation
+    times; in each, ``MSD = 6 D t + c`` is fitted to the path-averaged MSD over lags from one relaxation
+    time to half the segment. D is the mean of the B values and its error their standard error
+    (batch means: segments longer than the relaxation time are nearly independent).
+
+    Parameters
+    ----------
+    times : array_like, shape (n_frames,), float64
+        Equally spaced, increasing frame times.
+    paths : array_like, shape (n_frames, n_paths, 3), float64
+        Continuous centre-of-mass paths, unit L.
+    relaxation : RelaxationTime
+        Of the chains' end-to-end vector over the same frames (:func:`relaxation_time`).
+    max_segments, min_segments : int
+        Bounds on B.
+
+    Returns
+    -------
+    DiffusionFit
+        ``per_path`` holds the per-segment values; ``error`` is their standard error.
+
+    Raises
+    ------
+    AnalysisError
+        The frames lie further apart than the relaxation time (their MSD cannot be told from that of
+        independent samples); the chains never relax within the trajectory; or it spans fewer than
+        ``min_segments`` segments of :data:`SEGMENT_RELAXATIONS` relaxation times.
+    """
+    t = as_array(times, "times", shape=(None,))
+    r = as_array(paths, "paths", shape=(t.size, None, 3))
+    dt = float(t[1] - t[0])
+    tau = relaxation.e_fold
+    if tau is None:
+        raise AnalysisError("diffusion not determined: the end-to-end correlation never falls to 1/e within the "
+                            "trajectory, so the chains never relax and the MSD has no diffusive regime")
+    if tau < dt:
+        raise AnalysisError(f"diffusion not determined: frames further apart than the relaxation time (end-to-end "
+                            f"correlation below 1/e after one frame, {dt:.4g} time units); such frames cannot be "
+                            "told from independent samples, and their MSD measures no motion")
+    length = max(3, int(np.ceil(SEGMENT_RELAXATIONS * tau / dt)))
+    count = min(max_segments, t.size // length)
+    if count < min_segments:
+        raise AnalysisError(f"diffusion not determined: the trajectory spans {t.size * dt / tau:.3g} relaxation times "
+                            f"(tau = {tau:.4g}); an error needs {min_segments} segments of "
+                            f"{SEGMENT_RELAXATIONS} relaxation times")
+    length = t.size // count
+    lags = dt * np.arange(length)
+    use = (lags >= tau) & (lags <= 0.5 * lags[-1])
+    if use.sum() < 3:
+        raise AnalysisError(f"diffusion not determined: fewer than three lags between one relaxation time ({tau:.4g}) "
+                            "and half a segment")
+    values = np.array([line_fit(lags[use], mean_square_displacement(r[k * length:(k + 1) * length]).mean(axis=1)[use],
+                                what="diffusion fit")[0] / 6.0 for k in range(count)])
+    return DiffusionFit(coefficient=float(values.mean()), error=float(values.std(ddof=1) / np.sqrt(count)),
+                        per_path=values, t_min=float(lags[use][0]), t_max=float(lags[use][-1]))
+
+
 def vector_autocorrelation(vectors):
     """Normalised autocorrelation ``<v(t) . v(t+m)> / <v . v>`` averaged over paths and time origins.
 
@@ -193,6 +259,10 @@ class RelaxationTime:
     integrated : float
         ``dt (1/2 + sum_{m>=1} C(m))`` summed up to the first non-positive C;
         equals tau for ``C = exp(-t/tau)`` with ``dt << tau``.
+    integrated_error : float
+        Its standard error for a window of M lags over n frames,
+        ``integrated * sqrt(2 (2 M + 1) / n)`` (Madras and Sokal, J. Stat. Phys. 50, 109, 1988, eq. 2.14
+        [from memory]).
     e_fold : float or None
         First time where C falls to 1/e (linear interpolation); None if it never does.
     converged : bool
@@ -200,6 +270,7 @@ class RelaxationTime:
     """
 
     integrated: float
+    integrated_error: float
     e_fold: float | None
     converged: bool
 
@@ -225,12 +296,14 @@ def relaxation_time(acf, dt):
     nonpositive = np.flatnonzero(c <= 0)
     stop = int(nonpositive[0]) if nonpositive.size else c.size
     integrated = dt * (0.5 + c[1:stop].sum())
+    integrated_error = integrated * np.sqrt(2.0 * (2 * (stop - 1) + 1) / c.size)
     below = np.flatnonzero(c < np.exp(-1.0))
     e_fold = None
     if below.size:
         k = int(below[0])
         e_fold = float(dt * (k - 1 + (c[k - 1] - np.exp(-1.0)) / (c[k - 1] - c[k])))
-    return RelaxationTime(integrated=float(integrated), e_fold=e_fold, converged=bool(nonpositive.size))
+    return RelaxationTime(integrated=float(integrated), integrated_error=float(integrated_error), e_fold=e_fold,
+                          converged=bool(nonpositive.size))
 
 
 def _lag_times(traj):
