@@ -33,7 +33,8 @@ def _cmd_analyze(args):
     if args.first is not None or args.last is not None:
         frames = (args.first, args.last)
     summary = analyze_file(args.trajectory, top_path=args.top, out_dir=args.out, frames=frames,
-                           length_scale=args.length_scale)
+                           length_scale=args.length_scale, q=args.q, q_range=args.q_range, n_q=args.q_count,
+                           pair_frames=args.pair_frames, structure_frames=args.structure_frames)
     print(format_table(summary))
     print(f"tables and figures in {args.out}")
     return 0
@@ -184,6 +185,15 @@ def build_parser():
     p.add_argument("--first", type=int, help="first frame to use (default: 0)")
     p.add_argument("--last", type=int, help="frame to stop before (default: end)")
     p.add_argument("--length-scale", type=float, help="nm per sigma: report lengths in sigma")
+    p.add_argument("--q", type=float, nargs="+", metavar="Q",
+                   help="scattering vectors of P(q), 1/nm (1/sigma with --length-scale)")
+    p.add_argument("--q-range", type=float, nargs=2, metavar=("QMIN", "QMAX"),
+                   help="log-spaced P(q) grid over this range instead (default 0.2/Rg .. 10/<b>)")
+    p.add_argument("--q-count", type=int, default=60, help="points of the log-spaced P(q) grid (default 60)")
+    p.add_argument("--pair-frames", type=int,
+                   help="most frames for P(q) and R_h, spread evenly (default: every equilibrated frame)")
+    p.add_argument("--structure-frames", type=int, default=200,
+                   help="most frames for S(q) of a periodic box, spread evenly (default 200)")
     p.set_defaults(func=_cmd_analyze)
     return parser
 

@@ -122,3 +122,30 @@ def test_format_table_of_minimal_summary():
 def test_format_table_names_the_malformed_key(summary, message):
     with pytest.raises(InputError, match=message):
         format_table(summary)
+
+
+def _numbers_without_error(summary):
+    """Names of quantities and fits that give neither an error nor a reason for having none."""
+    entries = {**summary["quantities"], **summary["fits"]}
+    return [name for name, e in entries.items() if e["error"] is None and not e.get("reason")]
+
+
+def test_every_reported_number_has_an_error_or_a_reason(run_file, tmp_path):
+    """Periodic walks (every analysis path, S(q) included) and the same file cut to 10 frames: every quantity and
+    fit in summary.json carries an error or says why not, and so do the P(q) and S(q) tables (an error column,
+    or NaN there with the reason under error_blocks: these walks drift too slowly for 8 blocks)."""
+    _, _, path = run_file
+    for frames, out in ((None, "full"), ((0, 10), "short")):
+        summary = analyze_file(path, out_dir=tmp_path / out, frames=frames)
+        assert _numbers_without_error(json.loads((tmp_path / out / "summary.json").read_text())) == []
+        for table, column in (("form_factor", "p_error"), ("structure_factor", "s_error")):
+            errors = pd.read_csv(tmp_path / out / f"{table}.csv")[column]
+            assert np.all(errors >= 0) or (errors.isna().all() and "no error" in summary["error_blocks"]["reason"])
+
+
+def test_user_q_values_are_used_and_refused_when_not_positive(run_file, tmp_path):
+    _, _, path = run_file
+    analyze_file(path, out_dir=tmp_path / "q", q=[0.5, 1.0, 2.0])
+    assert pd.read_csv(tmp_path / "q" / "form_factor.csv")["q"].tolist() == [0.5, 1.0, 2.0]
+    with pytest.raises(InputError, match="q: expected one or more scattering vector magnitudes > 0"):
+        analyze_file(path, out_dir=tmp_path / "bad", q=[-1.0, 2.0])
