@@ -80,9 +80,10 @@ def _series_summary(series, t0=None):
 
 
 def _slowest_inefficiency(*series):
-    """Largest statistical inefficiency of the series (:func:`~beadsim.analysis.stats.conservative_inefficiency`), frames."""
-    return max([stats.conservative_inefficiency(x) for x in series if x.size >= stats.MIN_SAMPLES and not stats.is_constant(x)],
-               default=1.0)
+    """Largest statistical inefficiency of the series, frames: for each the larger of its autocorrelation and
+    blocking estimates (:func:`~beadsim.analysis.stats.inefficiency_estimate`), so that blocks err long."""
+    return max([stats.inefficiency_estimate(x).value for x in series
+                if x.size >= stats.MIN_SAMPLES and not stats.is_constant(x)], default=1.0)
 
 
 class _Blocks:
