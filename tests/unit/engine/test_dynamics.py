@@ -117,6 +117,41 @@ def test_free_bead_diffusion_follows_einstein_relation():
     assert msd == pytest.approx(expected, rel=4 * np.sqrt(2 / (3 * 4000)))
 
 
+def test_brownian_dynamics_samples_harmonic_dimers_with_its_exact_timestep_error():
+    """Euler-Maruyama Brownian dynamics, x' = x + dt F / (m gamma) + sqrt(2 kT dt / (m gamma)) xi, moves the bond
+    vector r of a harmonic dimer (rest length 0) as the AR(1) process r' = (1 - a) r + s xi with
+    a = 2 k dt / (m gamma) and s^2 = 4 kT dt / (m gamma) per component, whose stationary variance is exactly
+    s^2 / (1 - (1 - a)^2) = (kT / k) / (1 - k dt / (m gamma)) (stationary variance of an AR(1) process, e.g.
+    Priestley, Spectral Analysis and Time Series, 1981, ch. 3; the overdamped limit kT/k as dt -> 0).
+
+    Seed 23; 500 dimers, k = 10, kT = 1.3, m = 1, gamma = 2, dt = 0.02 (k dt / (m gamma) = 0.1: 11 % above kT/k);
+    200 snapshots 25 steps apart (the AR(1) coefficient 0.8 decays to 4e-3 between them); 3e5 samples; tolerance
+    4 standard errors (about 0.8 %). A noise amplitude off by sqrt(2) (sampling at kT/2) misses by 50 %."""
+    k, kT, gamma, dt = 10.0, 1.3, 2.0, 0.02
+    sim = bs.Simulation(_dimers(500, 0.3), bs.ForceField(bs.NoPair(), bs.HarmonicBond(k, 0.0)),
+                        bs.Brownian(dt, kT, gamma), seed=23)
+    sim.advance(200)
+    x2 = np.concatenate([((snap.positions[1::2] - snap.positions[0::2]) ** 2).ravel()
+                         for snap in bs.iterate(sim, 5000, 25)])
+    exact = kT / k / (1.0 - k * dt / gamma)
+    assert abs(x2.mean() - exact) < 4 * x2.std(ddof=1) / np.sqrt(x2.size)
+
+
+def test_brownian_free_beads_diffuse_with_the_einstein_coefficient():
+    """Free beads under Euler-Maruyama Brownian dynamics: each step adds an independent Gaussian displacement of
+    variance 2 D dt per component with D = kT / (m gamma) (Einstein relation), so MSD(t) = 6 D t exactly at any dt.
+
+    Seed 29; 4000 beads, kT = 0.8, gamma = 2.5, dt = 0.01, 2000 steps; the MSD estimate from 12000 Gaussian
+    components has relative standard error sqrt(2/12000) = 1.3 percent; tolerance 4 standard errors."""
+    kT, gamma, dt, steps = 0.8, 2.5, 0.01, 2000
+    system = _free_beads(4000)
+    start = system.positions.copy()
+    sim = bs.Simulation(system, bs.ForceField(bs.NoPair(), bs.HarmonicBond()), bs.Brownian(dt, kT, gamma), seed=29)
+    sim.advance(steps)
+    msd = np.mean(np.sum((system.positions - start) ** 2, axis=1))
+    assert msd == pytest.approx(6 * kT / gamma * steps * dt, rel=4 * np.sqrt(2 / (3 * 4000)))
+
+
 def test_ideal_gaussian_chain_sizes():
     """Harmonic springs (rest length 0), no non-bonded forces: <Re^2> = 3 (N-1) kT/k_s and
     <Rg^2> = b^2 (N^2-1)/(6N), b^2 = 3 kT/k_s (exact; Rubinstein and Colby, Polymer Physics, 2003).
