@@ -338,6 +338,43 @@ def inefficiency_estimate(series):
                         autocorrelation_error=acf_error, window=window, blocking=g_blk, blocking_error=blk_error)
 
 
+TRANSIENT_SIGNIFICANCE = 5.0
+"""Standard errors by which the mean of a detected start must differ from the rest for :func:`significant_start`
+to drop it."""
+
+
+def significant_start(series):
+    """Start of the equilibrated part: :func:`detect_equilibration`'s, kept only where it marks a transient.
+
+    The detected start is the one that maximises n / g of the rest, so on a stationary series it picks
+    whatever start looks most like a transient, and dropping it selects the rest: errors of the mean were
+    6-17 % too small in variance over 1,000 stationary series (tests/unit/analysis/test_error_calibration.py).
+    The start is therefore dropped only when its mean differs from the rest's by more than
+    :data:`TRANSIENT_SIGNIFICANCE` standard errors (the dropped part counting as at most one independent
+    sample per g); a real transient passes this by far, stationary noise almost never (variance ratios
+    1.01-1.06 after the test).
+
+    Parameters
+    ----------
+    series : array_like, shape (n,), float64
+        Equally spaced samples, n >= :data:`MIN_SAMPLES`.
+
+    Returns
+    -------
+    int
+        Index of the first sample kept (0: nothing dropped).
+    """
+    x = _series(series, min_length=MIN_SAMPLES)
+    t0 = detect_equilibration(x)[0]
+    rest = x[t0:]
+    if t0 == 0 or rest.size < 2 or is_constant(rest):
+        return t0
+    g = windowed_inefficiency(rest)
+    variance = rest.var(ddof=1)
+    error = math.sqrt(variance * min(1.0, g / t0) + variance * g / rest.size)
+    return t0 if abs(x[:t0].mean() - rest.mean()) > TRANSIENT_SIGNIFICANCE * error else 0
+
+
 @dataclass(frozen=True)
 class Summary:
     """Mean of a time series with its error, or the reason no error can be given.
@@ -380,7 +417,7 @@ def summarize(series, min_independent=MIN_INDEPENDENT, detect=True):
     """Mean, standard error and sample statistics of a time series, with a clear "too short" outcome.
 
     Steps: (1) series shorter than :data:`MIN_SAMPLES` -> mean only, reason given;
-    (2) discard the start found by :func:`detect_equilibration` (if ``detect``);
+    (2) discard the start found by :func:`significant_start` (if ``detect``);
     (3) g of the whole series (:func:`windowed_inefficiency`; the rest's own g is biased low by the
     choice of the start) and
     ``n_independent = n / g`` of the rest; (4) if fewer than
@@ -415,7 +452,7 @@ def summarize(series, min_independent=MIN_INDEPENDENT, detect=True):
         return short(f"only {n} samples (need {MIN_SAMPLES} or more to estimate correlations)", x.mean())
     if is_constant(x):
         return short("the series is constant", x.mean())
-    t0 = detect_equilibration(x)[0] if detect else 0
+    t0 = significant_start(x) if detect else 0
     prod = x[t0:]
     if prod.size < MIN_SAMPLES or is_constant(prod):
         return short(f"only {prod.size} usable samples after equilibration at sample {t0}", prod.mean(), t0)
