@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .._validate import as_array, positive
+from .._validate import as_array, positive, positive_int
 from ..errors import AnalysisError, InputError
 from ._common import check_chains, check_positions, line_fit
 from .trajectory import find_chains, trajectory_positions
@@ -159,7 +159,7 @@ class PersistenceFit:
     s_max: int
 
 
-def persistence_length(correlation, mean_bond_length, cutoff=np.exp(-2.0)):
+def persistence_length(correlation, mean_bond_length, cutoff=np.exp(-2.0), s_max=None):
     """Fit ``ln C(s) = -s <b> / l_p`` over s = 0 .. s_max, where C stays above ``cutoff``.
 
     The cutoff exp(-2) (the fit stops once the correlation has decayed by two
@@ -173,6 +173,9 @@ def persistence_length(correlation, mean_bond_length, cutoff=np.exp(-2.0)):
         ``<b>``, unit L.
     cutoff : float
         Fit only the leading points with C(s) > cutoff; 0 < cutoff < 1.
+    s_max : int, optional
+        Fit s = 0 .. s_max instead of the range the cutoff picks (for resampled copies of one data set,
+        which must share the fit range of the whole).
 
     Returns
     -------
@@ -200,6 +203,8 @@ def persistence_length(correlation, mean_bond_length, cutoff=np.exp(-2.0)):
         raise AnalysisError(f"no persistence length worth quoting: neighbouring bonds correlate with C(1) = "
                             f"{c[1]:.3g} <= 1/e, a persistence length under one bond (a freely-jointed chain has "
                             "C(1) = 0): the chain has no bending stiffness to speak of")
+    if s_max is not None:
+        return _decay_fit(c, mean_bond_length, positive_int(s_max, "s_max"))
     below = np.flatnonzero(c <= cutoff)
     if not below.size:
         raise AnalysisError(f"persistence length not resolved: C(s) stays above {cutoff:.3g} over the whole chain "
@@ -208,6 +213,13 @@ def persistence_length(correlation, mean_bond_length, cutoff=np.exp(-2.0)):
     if s_max < 2:
         raise AnalysisError(f"persistence length not resolved: C(s) falls below {cutoff:.3g} at s = {s_max + 1}, "
                             "leaving fewer than three points to fit")
+    return _decay_fit(c, mean_bond_length, s_max)
+
+
+def _decay_fit(c, mean_bond_length, s_max):
+    """Fit ``ln C(s) = -s <b> / l_p`` over s = 0 .. s_max."""
+    if not 2 <= s_max < c.size or np.any(c[:s_max + 1] <= 0):
+        raise AnalysisError(f"persistence-length fit over s = 0 .. {s_max}: needs 2 <= s_max < {c.size} and C > 0")
     s = np.arange(s_max + 1, dtype=np.float64)
     slope, _, cov, _ = line_fit(s, np.log(c[:s_max + 1]), what="persistence-length fit")
     decay, error = -slope, np.sqrt(cov[0, 0])

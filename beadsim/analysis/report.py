@@ -283,7 +283,8 @@ def _internal_and_bonds(x, chains, t0, blocks, block_means, quantities, fits, sk
     try:
         fit = bonds.persistence_length(correlations.mean(axis=0), mean_bond)
         fits["persistence_length"] = blocks.estimate(
-            [correlations], lambda c: bonds.persistence_length(c, mean_bond).length, unit, s_max=fit.s_max)
+            [correlations], lambda c: bonds.persistence_length(c, mean_bond, s_max=fit.s_max).length, unit,
+            s_max=fit.s_max)
     except AnalysisError as exc:
         skipped["persistence_length"] = str(exc)
     return mean_bond
