@@ -26,9 +26,18 @@ DEPTHS = np.round(np.arange(0.7, 1.31, 0.04), 10)
 
 
 def _table(seed, noise=0.01, lengths=LENGTHS, kind="temperature"):
+    """The model table, with <Rg^2> written out here from the textbook ideal-chain factor (N^2 - 1)/(6N)
+    (Rubinstein and Colby, Polymer Physics, 2003, ch. 2) rather than through the module's own helper, so a
+    wrong normaliser in the estimators cannot cancel against the same one in the data."""
     controls, theta = (TEMPERATURES, THETA) if kind == "temperature" else (DEPTHS, THETA_DEPTH)
-    return flory_model_table(lengths, controls, theta, A, W, B2, kind, n_replicas=4, relative_error=noise,
-                             nu_error=noise / 2, seed=seed)
+    df = flory_model_table(lengths, controls, theta, A, W, B2, kind, n_replicas=4, relative_error=noise,
+                           nu_error=noise / 2, seed=seed)
+    n = df["n_beads"].to_numpy(dtype=float)
+    alpha2 = flory_alpha(A * tau_from_control(df["control"].to_numpy(), theta, kind) * np.sqrt(n), W) ** 2
+    rg2 = B2 * (n * n - 1.0) / (6.0 * n) * alpha2
+    df["rg2"] = rg2 * (1 + noise * np.random.default_rng(seed + 10_000).standard_normal(n.size))
+    df["rg2_error"] = noise * rg2
+    return df
 
 
 def _varying_ratio(df, kind, theta, kappa=0.3):
@@ -196,3 +205,13 @@ def test_estimate_as_dict_is_flat():
     row = Estimate("m", 1.0, 0.1, "N = 8", ("a", "b")).as_dict()
     assert row == {"method": "m", "value": 1.0, "error": 0.1, "fitted_on": "N = 8", "note": "a; b"}
     assert isinstance(estimates_table([]), pd.DataFrame)
+
+
+def test_ideal_rg2_factor_is_the_direct_sum_over_bead_pairs():
+    """<Rg^2> of an ideal chain = (1/N^2) sum_{i<j} <r_ij^2> with <r_ij^2> = |i - j| b^2 (Rubinstein and Colby,
+    Polymer Physics, 2003, eq. 2.48 [from memory]), summed pair by pair here for b = 1; the closed form the
+    estimators use, (N^2 - 1)/(6N), must match it."""
+    from beadsim.studies.theta import ideal_rg2_factor
+    for n in (2, 3, 16, 101):
+        i, j = np.triu_indices(n, k=1)
+        assert ideal_rg2_factor(n) == pytest.approx(np.sum(j - i) / n ** 2, rel=1e-12)
