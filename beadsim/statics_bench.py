@@ -150,7 +150,7 @@ def cost_exponent(sizes, rates):
 
 
 def run_statics_benchmark(sizes=(256, 512, 1024), temperature=3.3, cpu_seconds=120.0,
-                          samplers=("hybrid", "previous-moves", "dynamics"), log=print):
+                          samplers=("hybrid", "previous-moves", "dynamics"), log=print, equilibration_rounds=None):
     """The statics benchmark at each chain length; JSON-ready dict.
 
     Parameters
@@ -164,13 +164,15 @@ def run_statics_benchmark(sizes=(256, 512, 1024), temperature=3.3, cpu_seconds=1
     samplers : sequence of str
     log : callable
         Receives one line per measurement.
+    equilibration_rounds : int, optional
+        Rounds of tuned hybrid sampling before the samplers start; default ``max(4000, 4 N)``.
     """
     from .bench import machine_description
 
     set_threads(1)
     results = []
     for n in sizes:
-        equilibration = max(4000, 4 * n)
+        equilibration = max(4000, 4 * n) if equilibration_rounds is None else equilibration_rounds
         log(f"statics N = {n}: equilibrating ({equilibration} rounds of hybrid sampling)")
         system = equilibrated_chain(n, temperature, equilibration)
         for name in samplers:

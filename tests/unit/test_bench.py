@@ -71,7 +71,8 @@ def test_statics_benchmark_reports_the_exponent_with_its_error():
     """Three short chains, hybrid only: the summary gives the cost exponent as a value with an error (three
     lengths) and the table prints both."""
     from beadsim.statics_bench import format_statics, run_statics_benchmark
-    report = run_statics_benchmark(sizes=(12, 16, 24), cpu_seconds=0.3, samplers=("hybrid",), log=lambda line: None)
+    report = run_statics_benchmark(sizes=(12, 16, 24), cpu_seconds=0.3, samplers=("hybrid",), log=lambda line: None,
+                                   equilibration_rounds=200)
     x = report["summary"]["cost_exponent_hybrid"]
     assert np.isfinite(x["value"]) and x["error"] is not None and x["error"] >= 0
     assert f"cost exponent of the hybrid sampler in N: {x['value']} +- {x['error']}" in format_statics(report)
