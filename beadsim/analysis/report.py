@@ -95,11 +95,12 @@ class _Blocks:
         self.blocks = [t0 + b for b in plan.blocks] or [np.arange(t0, n_frames)]
         self.method = (None if plan.reason else
                        JACKKNIFE.format(blocks=len(self.blocks), length=self.blocks[0].size))
-        self.pair_blocks = self.blocks
-        if pair_frames is not None:
-            per_block = max(1, math.ceil(pair_frames / len(self.blocks)))
-            self.pair_blocks = [b[np.unique(np.linspace(0, b.size - 1, min(per_block, b.size)).astype(int))]
-                                for b in self.blocks]
+        self.pair_blocks = self.blocks if pair_frames is None else self.thinned(pair_frames)
+
+    def thinned(self, limit):
+        """The blocks with at most ``limit`` frames in all, evenly spaced within each block."""
+        per_block = max(1, math.ceil(limit / len(self.blocks)))
+        return [b[np.unique(np.linspace(0, b.size - 1, min(per_block, b.size)).astype(int))] for b in self.blocks]
 
     @property
     def frames(self):
@@ -108,6 +109,11 @@ class _Blocks:
     @property
     def pair_frames(self):
         return np.concatenate(self.pair_blocks)
+
+    def split_means(self, values, pair=False):
+        """Block means of per-frame ``values`` given for :attr:`frames` (or :attr:`pair_frames`), shape (B, ...)."""
+        sizes = [b.size for b in (self.pair_blocks if pair else self.blocks)]
+        return np.array([part.mean(axis=0) for part in np.split(np.asarray(values), np.cumsum(sizes)[:-1])])
 
     def estimate(self, block_means, estimator, unit, **details):
         """A JSON-ready fit entry: value with its jackknife error, or the value and the reason for none."""
@@ -206,24 +212,19 @@ def measure(x, times, chains, linear=True, box=None, with_dynamics=True, q=None,
     slow = [rg2_frame[t0:]] + ([re2_frame[t0:]] if linear else [])
     blocks = _Blocks(t0, n_frames, _slowest_inefficiency(*slow), pair_frames)
 
-    def block_means(per_frame, which=None):
-        return np.array([per_frame[b].mean(axis=0) for b in (which or blocks.blocks)])
-
     inverse_rh = 1.0 / size.hydrodynamic_radius(x[blocks.pair_frames], chains).mean(axis=1)
-    offsets = np.cumsum([0] + [b.size for b in blocks.pair_blocks])
-    rh_blocks = np.array([inverse_rh[a:b].mean() for a, b in zip(offsets[:-1], offsets[1:])])
-    fits["hydrodynamic_radius"] = blocks.estimate([rh_blocks], lambda m: 1.0 / m, unit,
-                                                  definition="1 / <1/R_h> (Kirkwood)",
+    fits["hydrodynamic_radius"] = blocks.estimate([blocks.split_means(inverse_rh, pair=True)], lambda m: 1.0 / m,
+                                                  unit, definition="1 / <1/R_h> (Kirkwood)",
                                                   frames=int(blocks.pair_frames.size))
 
     if linear:
         tables["series"]["re_squared_mean"] = re2_frame
         quantities["re_squared"] = {**_series_summary(re2_frame, t0=t0), "unit": f"{unit}^2"}
-        fits["re2_over_rg2"] = blocks.estimate([block_means(re2_frame), block_means(rg2_frame)],
+        fits["re2_over_rg2"] = blocks.estimate([blocks.split_means(re2_frame[blocks.frames]),
+                                                blocks.split_means(rg2_frame[blocks.frames])],
                                                lambda a, b: a / b, "1",
                                                note="ratio of means; 6 N/(N+1) for ideal chains")
-        mean_bond = _internal_and_bonds(x, chains, t0, blocks, block_means, quantities, fits, skipped, tables,
-                                        figures, unit)
+        mean_bond = _internal_and_bonds(x, chains, t0, blocks, quantities, fits, skipped, tables, figures, unit)
     else:
         pairs = np.concatenate([np.stack([c[:-1], c[1:]], axis=1) for c in chains])
         mean_bond = float(np.mean(np.linalg.norm(x[t0:, pairs[:, 1]] - x[t0:, pairs[:, 0]], axis=-1)))
@@ -244,11 +245,9 @@ def measure(x, times, chains, linear=True, box=None, with_dynamics=True, q=None,
             "error_blocks": error_blocks}
 
 
-def _internal_and_bonds(x, chains, t0, blocks, block_means, quantities, fits, skipped, tables, figures, unit):
+def _internal_and_bonds(x, chains, t0, blocks, quantities, fits, skipped, tables, figures, unit):
     """Internal distances, nu from them, bonds and persistence length (into the dicts); the mean bond length."""
-    r2_frames = internal.internal_distances(x[blocks.frames], chains)
-    offsets = np.cumsum([0] + [b.size for b in blocks.blocks])
-    r2_blocks = np.array([r2_frames[a:b].mean(axis=0) for a, b in zip(offsets[:-1], offsets[1:])])
+    r2_blocks = blocks.split_means(internal.internal_distances(x[blocks.frames], chains))
     r2, r2_error = blocks.mean_and_error(r2_blocks)
     s = np.arange(1, r2.size)
     nu_eff = internal.effective_exponent(s, r2[1:]) if s.size >= 2 else np.full(s.size, np.nan)
@@ -363,8 +362,7 @@ def _structure_factor(x, box, blocks, structure_frames, mean_bond, skipped, tabl
 
     The range is capped at ``MAX_LATTICE_INDEX`` lattice shells so that large boxes stay cheap.
     """
-    per_block = max(1, math.ceil(structure_frames / len(blocks.blocks)))
-    picks = [b[np.unique(np.linspace(0, b.size - 1, min(per_block, b.size)).astype(int))] for b in blocks.blocks]
+    picks = blocks.thinned(structure_frames)
     q_max = min(10.0 / mean_bond, 2.0 * np.pi * MAX_LATTICE_INDEX / float(box[np.concatenate(picks)].max()))
     results = [scattering.structure_factor(x[f], box[f], q_max) for f in picks]
     if any(r.q.shape != results[0].q.shape or not np.allclose(r.q, results[0].q) for r in results):

@@ -130,11 +130,9 @@ def windowed_inefficiency(series, c=SOKAL_WINDOW):
     x = _series(series)
     if is_constant(x):
         raise AnalysisError("series: constant, so its statistical inefficiency is undefined")
-    d = x - x.mean()
-    n = d.size
-    spectrum = np.fft.rfft(d, 2 * n)
-    rho = np.fft.irfft(spectrum * spectrum.conj(), 2 * n)[:n]
-    rho = rho / rho[0]
+    sums = autocorrelation_sum((x - x.mean())[:, None])
+    rho = sums / sums[0]
+    n = x.size
     tau = 0.5
     for m in range(1, n):
         tau += rho[m]
@@ -499,11 +497,6 @@ class BlockPlan:
 
     blocks: list
     reason: str | None
-
-    @property
-    def frames(self):
-        """All frames of the blocks, in order (int64 array)."""
-        return np.concatenate(self.blocks) if self.blocks else np.zeros(0, dtype=np.int64)
 
 
 def plan_blocks(n_frames, inefficiency, max_blocks=MAX_BLOCKS, min_blocks=MIN_BLOCKS):

@@ -39,6 +39,7 @@ from scipy.integrate import quad
 
 from beadsim.analysis import scattering, summarize
 from beadsim.analysis.report import measure
+from test_analysis_bonds import freely_rotating_chain
 
 N_Q = 20
 
@@ -106,21 +107,6 @@ def _gaussian_bonds(rng, frames, n, phi=0.0):
 def _unit_bonds(rng, frames, n):
     v = rng.normal(size=(frames, n - 1, 3))
     return v / np.linalg.norm(v, axis=-1, keepdims=True)
-
-
-def _rotating_bonds(rng, frames, n, c):
-    """Freely rotating chain: unit bonds, each at angle arccos(c) to the last, uniform azimuth."""
-    bonds = np.empty((frames, n - 1, 3))
-    bonds[:, 0] = _unit_bonds(rng, frames, 2)[:, 0]
-    for k in range(1, n - 1):
-        b = bonds[:, k - 1]
-        helper = np.where(np.abs(b[:, :1]) < 0.9, [[1.0, 0.0, 0.0]], [[0.0, 1.0, 0.0]])
-        e1 = np.cross(b, helper)
-        e1 /= np.linalg.norm(e1, axis=1, keepdims=True)
-        e2 = np.cross(b, e1)
-        phi = rng.uniform(0.0, 2.0 * np.pi, size=(frames, 1))
-        bonds[:, k] = c * b + np.sqrt(1.0 - c * c) * (np.cos(phi) * e1 + np.sin(phi) * e2)
-    return bonds
 
 
 def _ensemble(make, files, seed, chains=None, **options):
@@ -221,7 +207,8 @@ def test_errors_of_the_persistence_length_of_freely_rotating_chains(files):
     """Seed 304; K files of 320 independent frames of a 24-bead freely rotating chain with cos(theta) = 0.8:
     persistence length -1 / ln 0.8 = 4.48 bonds (the correlation falls below exp(-2) at s = 9 of 22)."""
     n, c = 24, 0.8
-    results = _ensemble(lambda rng: _chains(_rotating_bonds(rng, 320, n, c)), files, seed=304, with_dynamics=False)
+    results = _ensemble(lambda rng: freely_rotating_chain(rng, 320, n, c)[0].reshape(320, n, 3), files, seed=304,
+                        with_dynamics=False)
     _check_z(*_fit(results, "persistence_length"), -1.0 / np.log(c), what="persistence_length")
 
 

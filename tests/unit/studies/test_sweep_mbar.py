@@ -155,6 +155,19 @@ def test_points_of_an_older_folder_without_the_energy_column_are_left_out_with_a
     assert alone.curves is None and "two or more temperatures" in alone.peak.notes[-1]
 
 
+def _mbar_pulls(seed, n_samples):
+    """(MBAR value - exact) / MBAR error of <U> and <Re^2> at T = 1.3, 1.6, 1.9, shape (2, 3), from five temperatures
+    of the ideal harmonic chain with correlation 0.95 per sample (exact: U = 1.5 (N - 1) T, Re^2 = 3 (N - 1) T / k)."""
+    grid = np.array([1.3, 1.6, 1.9])
+    rng = np.random.default_rng(seed)
+    samples = [harmonic_chain(rng, t, n_samples=n_samples, rho=0.95) for t in TEMPERATURES]
+    pooled = pool_samples(TEMPERATURES, [s["potential_energy"] for s in samples],
+                          {name: [s[name] for s in samples] for name in ("rg2", "re2")})
+    curves = reweighted_curves(pooled, grid, N_BEADS)
+    exact = {"potential_energy": 1.5 * (N_BEADS - 1) * grid / N_BEADS, "re2": 3 * (N_BEADS - 1) * grid / STIFFNESS}
+    return np.array([(curves.means[k] - v) / curves.errors[k] for k, v in exact.items()])
+
+
 @pytest.mark.slow
 def test_mbar_errors_of_strongly_correlated_series_are_calibrated():
     # 40 seeds (1000-1039) of five temperatures with correlation 0.95 per sample (g about 39), 2000
@@ -162,16 +175,7 @@ def test_mbar_errors_of_strongly_correlated_series_are_calibrated():
     # errors, have a root-mean-square near 1 when the errors are right. For 40 standard normal
     # deviations the rms has a standard error of about 1/sqrt(2 x 40) = 0.11, so it must lie in
     # 1 +- 3 x 0.11 (without the residual-correlation factor it came out 1.3 to 1.4)
-    deviations = []
-    grid = np.array([1.3, 1.6, 1.9])
-    for seed in range(1000, 1040):
-        rng = np.random.default_rng(seed)
-        samples = [harmonic_chain(rng, t, n_samples=2000, rho=0.95) for t in TEMPERATURES]
-        pooled = pool_samples(TEMPERATURES, [s["potential_energy"] for s in samples],
-                              {name: [s[name] for s in samples] for name in ("rg2", "re2")})
-        curves = reweighted_curves(pooled, grid, N_BEADS)
-        exact = {"potential_energy": 1.5 * (N_BEADS - 1) * grid / N_BEADS, "re2": 3 * (N_BEADS - 1) * grid / STIFFNESS}
-        deviations.append([(curves.means[k] - v) / curves.errors[k] for k, v in exact.items()])
+    deviations = [_mbar_pulls(seed, n_samples=2000) for seed in range(1000, 1040)]
     rms = np.sqrt(np.mean(np.square(deviations), axis=0))
     assert np.all(np.abs(rms - 1) < 3 * 0.11), rms
 
@@ -182,17 +186,7 @@ def test_mbar_errors_are_calibrated_two_sided():
     pooled per seed. With right errors the mean square deviation is 1; the band is three standard errors of that
     mean over the 80 independent seeds (about 0.2), so errors 25 % too large (mean square 0.64) or too small
     (1.56), or an error factor that lost its square root, fail."""
-    grid = np.array([1.3, 1.6, 1.9])
-    per_seed = []
-    for seed in range(2000, 2080):
-        rng = np.random.default_rng(seed)
-        samples = [harmonic_chain(rng, t, n_samples=1000, rho=0.95) for t in TEMPERATURES]
-        pooled = pool_samples(TEMPERATURES, [s["potential_energy"] for s in samples],
-                              {name: [s[name] for s in samples] for name in ("rg2", "re2")})
-        curves = reweighted_curves(pooled, grid, N_BEADS)
-        exact = {"potential_energy": 1.5 * (N_BEADS - 1) * grid / N_BEADS, "re2": 3 * (N_BEADS - 1) * grid / STIFFNESS}
-        per_seed.append(np.mean([((curves.means[k] - v) / curves.errors[k]) ** 2 for k, v in exact.items()]))
-    per_seed = np.array(per_seed)
+    per_seed = np.array([np.mean(np.square(_mbar_pulls(seed, n_samples=1000))) for seed in range(2000, 2080)])
     assert abs(per_seed.mean() - 1.0) < 3 * per_seed.std(ddof=1) / np.sqrt(per_seed.size), per_seed.mean()
 
 
