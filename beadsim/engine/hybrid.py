@@ -73,9 +73,10 @@ a grid step of about 6e-4 sigma at a 2.5 sigma cutoff)."""
 TREE_LEAF_BEADS = 8
 """Most beads in a leaf of the bounding-sphere tree."""
 
-TREE_MIN_BEADS = 16
-"""Pivots of at least this many beads sum their pair energies over the tree, smaller ones through cells
-(measured: 8-16 equally fast, 64 about 15 % slower at N = 512, T = 3.3; analysis/statics_speed.md)."""
+TREE_MIN_BEADS = 1
+"""Pivots of at least this many beads sum their pair energies over the tree, smaller ones through cells. With
+every pivot on the tree the cells need no upkeep during the pivots (measured at N = 512, T = 3.3: 8.5 us per
+pivot against 10.5 with the cells kept and 11.0 with the threshold at 16; analysis/statics_speed.md)."""
 
 OVERLAP_ENERGY = 8.0
 """Pair energy, in kT, above which a pair counts as overlapping in the factorized Metropolis rule (module
@@ -292,13 +293,13 @@ class HybridSampler:
         n = pos.shape[0]
         kT = sim.integrator.temperature
         self._set_overlap_radius(kT)
-        self.cells.build(pos)
-        self.overlap_cells.build(pos)
         if self.tree_min_beads <= n:
             self.tree.build(pos)
         for kind, n_moves in wanted.items():
             if n_moves == 0:
                 continue
+            self.cells.build(pos)  # pivots summed over the tree alone leave the cells stale
+            self.overlap_cells.build(pos)
             KP.metropolis_moves(MOVE_KINDS[kind], n_moves, self.move_count, self.seed, kT, self.max_angle, pos,
                                 sim.system.types, sim.compiled.arrays, sim.compiled.excl_start, sim.compiled.excl,
                                 self.bond_start, self.bond_of, self.angle_start, self.angle_of, self.candidates,

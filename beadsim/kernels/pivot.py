@@ -211,57 +211,79 @@ def _coord(j, d, lo, hi, pos, trial, use_trial):
 
 
 @njit(cache=True)
-def _bonded_energy(lo, hi, pos, trial, use_trial, ff, bond_start, bond_of, angle_start, angle_of):
+def term_span(ff):
+    """Largest index distance between two members of one bond or angle of ``ff`` (0 without any).
+
+    A term with members inside and outside a range of beads ``[lo, hi)`` has its inside members within
+    this distance of ``lo`` or of ``hi - 1``, so the bonded energy change of a move scans only those.
+    """
+    span = 0
+    for terms in (ff[3], ff[7]):
+        for t in range(terms.shape[0]):
+            a = terms[t, 0]
+            b = terms[t, 0]
+            for k in range(1, terms.shape[1]):
+                a = min(a, terms[t, k])
+                b = max(b, terms[t, k])
+            span = max(span, b - a)
+    return span
+
+
+@njit(cache=True)
+def _bonded_energy(lo, hi, span, pos, trial, use_trial, ff, bond_start, bond_of, angle_start, angle_of):
     """Energy of the bonds and angles with members both inside and outside ``[lo, hi)``.
 
-    Moved beads are read from ``trial`` if ``use_trial``, else from ``pos``.
+    Moved beads are read from ``trial`` if ``use_trial``, else from ``pos``; ``span`` is
+    :func:`term_span` (only beads that near an end of the range are scanned).
     Returns ``(energy, ok)``.
     """
     tables = ff[2]
     bonds, bond_type, bond_kinds, bond_params = ff[3], ff[4], ff[5], ff[6]
     angles, angle_type, angle_params = ff[7], ff[8], ff[9]
     energy = 0.0
-    for i in range(lo, hi):
-        for k in range(bond_start[i], bond_start[i + 1]):
-            b = bond_of[k]
-            other = bonds[b, 0] + bonds[b, 1] - i
-            if lo <= other < hi:
-                continue
-            r2 = 0.0
-            for d in range(3):
-                dd = _coord(other, d, lo, hi, pos, trial, use_trial) - _coord(i, d, lo, hi, pos, trial, use_trial)
-                r2 += dd * dd
-            t = bond_type[b]
-            u, ok = bond_energy(bond_kinds[t], bond_params[t], r2, tables)
-            if not ok:
-                return 0.0, False
-            energy += u
-        for k in range(angle_start[i], angle_start[i + 1]):
-            m = angle_of[k]
-            p, q, r = angles[m, 0], angles[m, 1], angles[m, 2]
-            inside = (lo <= p < hi) + (lo <= q < hi) + (lo <= r < hi)
-            first = p if lo <= p < hi else (q if lo <= q < hi else r)
-            if inside == 3 or first != i:  # unchanged, or counted from its first moved member
-                continue
-            aa = 0.0
-            cc = 0.0
-            ac = 0.0
-            for d in range(3):
-                xq = _coord(q, d, lo, hi, pos, trial, use_trial)
-                a_d = xq - _coord(p, d, lo, hi, pos, trial, use_trial)
-                c_d = _coord(r, d, lo, hi, pos, trial, use_trial) - xq
-                aa += a_d * a_d
-                cc += c_d * c_d
-                ac += a_d * c_d
-            if aa == 0.0 or cc == 0.0:
-                return 0.0, False
-            cos_t = ac / math.sqrt(aa * cc)
-            energy += angle_params[angle_type[m], 0] * (1.0 - cos_t)
+    first_end = min(hi, lo + span)  # beads farther than span from both ends join no outside bead
+    for start, stop in ((lo, first_end), (max(first_end, hi - span), hi)):
+        for i in range(start, stop):
+            for k in range(bond_start[i], bond_start[i + 1]):
+                b = bond_of[k]
+                other = bonds[b, 0] + bonds[b, 1] - i
+                if lo <= other < hi:
+                    continue
+                r2 = 0.0
+                for d in range(3):
+                    dd = _coord(other, d, lo, hi, pos, trial, use_trial) - _coord(i, d, lo, hi, pos, trial, use_trial)
+                    r2 += dd * dd
+                t = bond_type[b]
+                u, ok = bond_energy(bond_kinds[t], bond_params[t], r2, tables)
+                if not ok:
+                    return 0.0, False
+                energy += u
+            for k in range(angle_start[i], angle_start[i + 1]):
+                m = angle_of[k]
+                p, q, r = angles[m, 0], angles[m, 1], angles[m, 2]
+                inside = (lo <= p < hi) + (lo <= q < hi) + (lo <= r < hi)
+                first = p if lo <= p < hi else (q if lo <= q < hi else r)
+                if inside == 3 or first != i:  # unchanged, or counted from its first moved member
+                    continue
+                aa = 0.0
+                cc = 0.0
+                ac = 0.0
+                for d in range(3):
+                    xq = _coord(q, d, lo, hi, pos, trial, use_trial)
+                    a_d = xq - _coord(p, d, lo, hi, pos, trial, use_trial)
+                    c_d = _coord(r, d, lo, hi, pos, trial, use_trial) - xq
+                    aa += a_d * a_d
+                    cc += c_d * c_d
+                    ac += a_d * c_d
+                if aa == 0.0 or cc == 0.0:
+                    return 0.0, False
+                cos_t = ac / math.sqrt(aa * cc)
+                energy += angle_params[angle_type[m], 0] * (1.0 - cos_t)
     return energy, True
 
 
 @njit(cache=True)
-def trial_energy_change(lo, hi, trial, pos, types, ff, excl_start, excl, bond_start, bond_of, angle_start,
+def trial_energy_change(lo, hi, trial, pos, types, ff, excl_start, excl, span, bond_start, bond_of, angle_start,
                         angle_of, width, head, nxt, seen, cap, r2_hard):
     """Change of the rest energy (epsilon) if beads ``lo .. hi-1`` moved from ``pos`` to ``trial``.
 
@@ -310,53 +332,54 @@ def trial_energy_change(lo, hi, trial, pos, types, ff, excl_start, excl, bond_st
                                                 kinds, params, tables, excl_start, excl, width, head, nxt, seen,
                                                 cap, r2_hard, REST)
             d_energy += u_new - u_old
-    d_bonded, ok = _bonded_change(lo, hi, trial, pos, ff, bond_start, bond_of, angle_start, angle_of)
+    d_bonded, ok = _bonded_change(lo, hi, span, trial, pos, ff, bond_start, bond_of, angle_start, angle_of)
     return d_energy + d_bonded, ok
 
 
 @njit(cache=True)
-def _bonded_change(lo, hi, trial, pos, ff, bond_start, bond_of, angle_start, angle_of):
+def _bonded_change(lo, hi, span, trial, pos, ff, bond_start, bond_of, angle_start, angle_of):
     """Change of the bond and angle energy if beads ``lo .. hi-1`` moved to ``trial``; ``(change, ok)``."""
-    u_new, ok = _bonded_energy(lo, hi, pos, trial, True, ff, bond_start, bond_of, angle_start, angle_of)
+    u_new, ok = _bonded_energy(lo, hi, span, pos, trial, True, ff, bond_start, bond_of, angle_start, angle_of)
     if not ok:
         return 0.0, False
-    u_old, _ = _bonded_energy(lo, hi, pos, trial, False, ff, bond_start, bond_of, angle_start, angle_of)
+    u_old, _ = _bonded_energy(lo, hi, span, pos, trial, False, ff, bond_start, bond_of, angle_start, angle_of)
     return u_new - u_old, True
 
 
 @njit(cache=True)
-def tree_energy_change(lo, hi, trial, pos, types, ff, excl_start, excl, bond_start, bond_of, angle_start,
-                       angle_of, reach, cap, r2_hard, g, origin, tree):
+def tree_energy_change(lo, hi, near, trial, pos, types, ff, excl_start, excl, span, bond_start, bond_of,
+                       angle_start, angle_of, reach, cap, r2_hard, g, origin, tree):
     """:func:`trial_energy_change` of a pivot move (``trial`` = ``pos`` of the block mapped by ``g`` about
     ``origin``, float64 (3,): the pivot bead's position), with the pair sums taken over the bounding-sphere
     tree (:mod:`beadsim.kernels.spheretree`).
 
-    ``reach`` is the largest pair cutoff (sigma) and ``tree`` as
+    ``reach`` is the largest pair cutoff (sigma), ``near`` and ``tree`` as
     :func:`~beadsim.kernels.spheretree.block_pair_energy`; the other arguments as :func:`trial_energy_change`.
     """
-    u_new, ok = block_pair_energy(lo, hi, trial, True, g, origin, pos, types, ff, excl_start, excl, reach, cap,
+    u_new, ok = block_pair_energy(lo, hi, near, trial, True, g, origin, pos, types, ff, excl_start, excl, reach, cap,
                                   r2_hard, False, math.inf, tree)
     if not ok:
         return 0.0, False
-    u_old, _ = block_pair_energy(lo, hi, pos, False, g, origin, pos, types, ff, excl_start, excl, reach, cap,
+    u_old, _ = block_pair_energy(lo, hi, near, pos, False, g, origin, pos, types, ff, excl_start, excl, reach, cap,
                                  r2_hard, False, math.inf, tree)
-    d_bonded, ok = _bonded_change(lo, hi, trial, pos, ff, bond_start, bond_of, angle_start, angle_of)
+    d_bonded, ok = _bonded_change(lo, hi, span, trial, pos, ff, bond_start, bond_of, angle_start, angle_of)
     return u_new - u_old + d_bonded, ok
 
 
 @njit(cache=True)
-def _overlap_sum(lo, hi, first, coords, mapped, pos, types, ff, excl_start, excl, width, head, nxt, seen, cap, limit,
+def _overlap_sum(lo, hi, near, coords, mapped, pos, types, ff, excl_start, excl, width, head, nxt, seen, cap, limit,
                  use_tree, g, origin, tree):
     """Overlap energy of beads ``lo .. hi-1`` placed at ``coords`` with the beads outside; ``inf`` as soon as it
-    exceeds ``limit`` or a pair is impossible. Summed over the tree (``use_tree``; ``coords`` mapped as
-    :func:`~beadsim.kernels.spheretree.block_pair_energy`) or through the cells from bead ``first`` on."""
+    exceeds ``limit`` or a pair is impossible. Summed over the tree (``use_tree``; ``near``, ``coords`` and
+    ``mapped`` as :func:`~beadsim.kernels.spheretree.block_pair_energy`) or through the cells bead by bead from
+    the block's end at ``near``."""
     if use_tree:
-        total, ok = block_pair_energy(lo, hi, coords, mapped, g, origin, pos, types, ff, excl_start, excl, width,
+        total, ok = block_pair_energy(lo, hi, near, coords, mapped, g, origin, pos, types, ff, excl_start, excl, width,
                                       cap, width * width, True, limit, tree)
         return total if ok else math.inf
-    step = 1 if first == lo else -1
+    step = -1 if near == hi else 1
     total = 0.0
-    i = first
+    i = hi - 1 if near == hi else lo
     for _ in range(hi - lo):
         u, ok = _pair_energy_with_fixed(i, coords[i, 0], coords[i, 1], coords[i, 2], lo, hi, pos, types, ff[0],
                                         ff[1], ff[2], excl_start, excl, width, head, nxt, seen, cap, width * width,
@@ -381,20 +404,20 @@ def overlap_free(pos, types, ff, excl_start, excl, width, head, nxt, seen, cap):
 
 
 @njit(cache=True)
-def overlap_barrier(lo, hi, first, trial, pos, types, ff, excl_start, excl, width, head, nxt, seen, cap, limit,
+def overlap_barrier(lo, hi, near, trial, pos, types, ff, excl_start, excl, width, head, nxt, seen, cap, limit,
                     clean, use_tree, g, origin, tree):
     """Positive part of the overlap energy change if beads ``lo .. hi-1`` moved; ``inf`` once it exceeds ``limit``.
 
-    The new overlap sum is taken bead by bead from ``first`` (``lo`` or ``hi - 1``: the end next to the
-    pivot, where a rotated block meets the rest soonest). Overlap parts are never negative, so the
+    The new overlap sum is taken from the block's end next to the pivot outwards, where a rotated
+    block meets the rest soonest. Overlap parts are never negative, so the
     scan stops as soon as the sum so far, less the old sum, exceeds ``limit``, and a new sum of zero
     has no positive change whatever the old one was. The old sum is zero when the current state has no
     overlapping pair at all (``clean``), and is otherwise taken in full when the new sum is positive.
 
     Parameters
     ----------
-    lo, hi, first : int
-        Moved beads and the first one scanned.
+    lo, hi, near : int
+        Moved beads, and the block's end at the pivot (``hi`` for a block below its pivot bead, else ``lo``).
     trial, pos, types, ff, excl_start, excl, seen
         As :func:`trial_energy_change`.
     width : float
@@ -418,14 +441,14 @@ def overlap_barrier(lo, hi, first, trial, pos, types, ff, excl_start, excl, widt
     float
         ``max(0, new - old)``, or ``inf`` when the change exceeds ``limit`` or the trial state is impossible.
     """
-    new = _overlap_sum(lo, hi, first, trial, True, pos, types, ff, excl_start, excl, width, head, nxt, seen, cap,
+    new = _overlap_sum(lo, hi, near, trial, True, pos, types, ff, excl_start, excl, width, head, nxt, seen, cap,
                        limit, use_tree, g, origin, tree)
     if new == 0.0 or clean:
         return new
-    old = _overlap_sum(lo, hi, lo, pos, False, pos, types, ff, excl_start, excl, width, head, nxt, seen, cap,
+    old = _overlap_sum(lo, hi, near, pos, False, pos, types, ff, excl_start, excl, width, head, nxt, seen, cap,
                        math.inf, use_tree, g, origin, tree)
     if old > 0.0:
-        new = _overlap_sum(lo, hi, first, trial, True, pos, types, ff, excl_start, excl, width, head, nxt, seen, cap,
+        new = _overlap_sum(lo, hi, near, trial, True, pos, types, ff, excl_start, excl, width, head, nxt, seen, cap,
                            limit + old, use_tree, g, origin, tree)
     return max(new - old, 0.0)
 
@@ -546,7 +569,9 @@ def metropolis_moves(kind, n_moves, first_move, seed, temperature, max_angle, po
         As :func:`propose`.
     cells, overlap_cells : tuple (width, head, nxt, prv, bucket)
         Hashed cells of ``pos`` (:func:`build_cells`) of edge the pair cutoff and the overlap radius
-        (width 0: none), kept current as moves are accepted.
+        (width 0: none), kept current as moves are accepted, except by pivots that all use the tree
+        (``kind == PIVOT`` and ``tree_min_beads <= 1``), which leave them stale: rebuild them before
+        using them again. Keeping them cost a fifth of the time of a pivot at N = 512, T = 3.3.
     cap : float
         Pair energy above which a pair overlaps, epsilon.
     tree : tuple
@@ -568,6 +593,8 @@ def metropolis_moves(kind, n_moves, first_move, seed, temperature, max_angle, po
     o_width, o_head, o_nxt, o_prv, o_bucket = overlap_cells
     r2_hard = o_width * o_width
     clean = o_width > 0.0 and overlap_free(pos, types, ff, excl_start, excl, o_width, o_head, o_nxt, seen, cap)
+    keep_cells = kind != PIVOT or tree_min_beads > 1  # pivots all summed over the tree read no cells
+    span = term_span(ff)
     for k in range(n_moves):
         move = first_move + k
         counts[0] += 1
@@ -577,22 +604,23 @@ def metropolis_moves(kind, n_moves, first_move, seed, temperature, max_angle, po
         v = uniform_open(seed, UNIFORMS_PER_MOVE * move + 6)
         below = lo == chain_lo[lo]  # the block lies below its pivot bead
         pivot = hi if below else lo - 1
+        near = hi if below else lo
         use_tree = kind == PIVOT and tree_min_beads <= hi - lo
         for d in range(3):
             origin[d] = pos[pivot, d]
         d_overlap = 0.0
         if o_width > 0.0:
-            d_overlap = overlap_barrier(lo, hi, hi - 1 if below else lo, trial, pos, types, ff, excl_start, excl,
+            d_overlap = overlap_barrier(lo, hi, near, trial, pos, types, ff, excl_start, excl,
                                         o_width, o_head, o_nxt, seen, cap, -temperature * math.log(v), clean,
                                         use_tree, g, origin, tree)
             if d_overlap == math.inf:
                 continue
         if use_tree:
-            d_rest, ok = tree_energy_change(lo, hi, trial, pos, types, ff, excl_start, excl, bond_start, bond_of,
-                                            angle_start, angle_of, width, cap, r2_hard, g, origin, tree)
+            d_rest, ok = tree_energy_change(lo, hi, near, trial, pos, types, ff, excl_start, excl, span, bond_start,
+                                            bond_of, angle_start, angle_of, width, cap, r2_hard, g, origin, tree)
         else:
-            d_rest, ok = trial_energy_change(lo, hi, trial, pos, types, ff, excl_start, excl, bond_start, bond_of,
-                                             angle_start, angle_of, width, head, nxt, seen, cap, r2_hard)
+            d_rest, ok = trial_energy_change(lo, hi, trial, pos, types, ff, excl_start, excl, span, bond_start,
+                                             bond_of, angle_start, angle_of, width, head, nxt, seen, cap, r2_hard)
         if not ok:
             continue
         barrier = d_overlap + max(d_rest, 0.0)
@@ -603,10 +631,10 @@ def metropolis_moves(kind, n_moves, first_move, seed, temperature, max_angle, po
         for i in range(lo, hi):
             for d in range(3):
                 pos[i, d] = trial[i, d]
-            if width > 0.0:
+            if width > 0.0 and keep_cells:
                 _relink(i, _bucket_of(pos[i, 0], pos[i, 1], pos[i, 2], width, head.shape[0]), head, nxt, prv,
                         bucket)
-            if o_width > 0.0:
+            if o_width > 0.0 and keep_cells:
                 _relink(i, _bucket_of(pos[i, 0], pos[i, 1], pos[i, 2], o_width, o_head.shape[0]), o_head, o_nxt,
                         o_prv, o_bucket)
         if tree_min_beads < pos.shape[0]:

@@ -135,10 +135,24 @@ def update_spheres(pos, n_nodes, node_lo, node_hi, left, center, radius, lo, hi,
             _merge(k, left[k], left[k] + 1, center, radius)
 
 
+@njit(cache=True, inline="always")
+def _near_child_last(k, near, left, node_hi):
+    """Children of node ``k`` as (pushed first, pushed last): the one nearer bead index ``near`` last, so a
+    stack pops it first."""
+    c = left[k]
+    if near < node_hi[c]:  # ``near`` lies in (or before) the lower child: it is the nearer one
+        return c + 1, c
+    return c, c + 1
+
+
 @njit(cache=True)
-def _pieces(lo, hi, pos, n_nodes, node_lo, node_hi, left, center, radius, moved, fixed, stack):
+def _pieces(lo, hi, near, pos, n_nodes, node_lo, node_hi, left, center, radius, moved, fixed, stack):
     """Cover ``[lo, hi)`` and its complement with whole nodes, cutting the leaves at the ends into spare
-    nodes; return (moved pieces, fixed pieces) counts written to ``moved`` and ``fixed``."""
+    nodes; return (moved pieces, fixed pieces) counts written to ``moved`` and ``fixed``.
+
+    The descent enters the child nearer bead index ``near`` first, so each list starts with the pieces
+    nearest ``near`` (the block's end at the pivot), the smallest ones, and grows outwards.
+    """
     n_moved = 0
     n_fixed = 0
     spare = n_nodes
@@ -155,8 +169,7 @@ def _pieces(lo, hi, pos, n_nodes, node_lo, node_hi, left, center, radius, moved,
             moved[n_moved] = k
             n_moved += 1
         elif left[k] >= 0:
-            stack[top] = left[k]
-            stack[top + 1] = left[k] + 1
+            stack[top], stack[top + 1] = _near_child_last(k, near, left, node_hi)
             top += 2
         else:
             for s, e, is_moved in ((a, lo, False), (max(a, lo), min(b, hi), True), (hi, b, False)):
@@ -193,12 +206,20 @@ def split_pair_energy(kind, p, r2, tables, cap, r2_hard, overlap):
 
 
 @njit(cache=True)
-def _leaf_pairs(a0, a1, b0, b1, coords, pos, types, kinds, params, tables, excl_start, excl, reach2, cap,
-                r2_hard, overlap):
+def _leaf_pairs(a0, a1, b0, b1, b_center, b_radius, coords, pos, types, kinds, params, tables, excl_start, excl,
+                reach, cap, r2_hard, overlap):
     """Overlap or rest energy (:func:`block_pair_energy`) of beads ``a0 .. a1-1`` at ``coords`` with beads
-    ``b0 .. b1-1`` at ``pos``; ``(energy, ok)``."""
+    ``b0 .. b1-1`` at ``pos``, whose sphere has centre ``b_center`` (float64 (3,)) and radius ``b_radius``;
+    ``(energy, ok)``. A bead of the first group farther than ``reach`` from that sphere is skipped whole."""
     energy = 0.0
+    reach2 = reach * reach
+    gap = b_radius + reach + PRUNE_MARGIN
     for i in range(a0, a1):
+        cx = b_center[0] - coords[i, 0]
+        cy = b_center[1] - coords[i, 1]
+        cz = b_center[2] - coords[i, 2]
+        if cx * cx + cy * cy + cz * cz > gap * gap:
+            continue
         ti = types[i]
         has_excl = excl_start[i + 1] > excl_start[i]
         for j in range(b0, b1):
@@ -219,8 +240,8 @@ def _leaf_pairs(a0, a1, b0, b1, coords, pos, types, kinds, params, tables, excl_
 
 
 @njit(cache=True)
-def block_pair_energy(lo, hi, coords, mapped, g, origin, pos, types, ff, excl_start, excl, reach, cap, r2_hard,
-                      overlap, limit, tree):
+def block_pair_energy(lo, hi, near, coords, mapped, g, origin, pos, types, ff, excl_start, excl, reach, cap,
+                      r2_hard, overlap, limit, tree):
     """Overlap or rest energy of the pairs joining beads ``lo .. hi-1`` (at ``coords``) to every other bead
     (at ``pos``); ``inf`` once an overlap sum exceeds ``limit``.
 
@@ -233,6 +254,11 @@ def block_pair_energy(lo, hi, coords, mapped, g, origin, pos, types, ff, excl_st
     ----------
     lo, hi : int
         The block.
+    near : int
+        Bead index where the block meets the pivot (``hi`` for a block below its pivot bead, else ``lo``).
+        Pairs of pieces nearer it are summed first, so an overlap sum meets the overlaps a pivot makes
+        (next to the pivot, where the rotated block and the rest are closest) soonest; the sum does not
+        depend on it beyond rounding.
     coords : float64 (n, 3)
         Positions of the block's beads (rows ``lo:hi``), sigma.
     mapped : bool
@@ -264,13 +290,13 @@ def block_pair_energy(lo, hi, coords, mapped, g, origin, pos, types, ff, excl_st
     """
     n_nodes, node_lo, node_hi, left, center, radius, moved, fixed, stack, pairs = tree
     kinds, params, tables = ff[0], ff[1], ff[2]
-    reach2 = reach * reach
-    n_moved, n_fixed = _pieces(lo, hi, pos, n_nodes, node_lo, node_hi, left, center, radius, moved, fixed, stack)
+    n_moved, n_fixed = _pieces(lo, hi, near, pos, n_nodes, node_lo, node_hi, left, center, radius, moved, fixed,
+                               stack)
     energy = 0.0
-    for p in range(n_moved):
-        for q in range(n_fixed):
+    for ring in range(n_moved + n_fixed - 1):  # piece pairs by their rank in distance from ``near``, nearest first
+        for p in range(max(0, ring - n_fixed + 1), min(ring, n_moved - 1) + 1):
             pairs[0, 0] = moved[p]
-            pairs[0, 1] = fixed[q]
+            pairs[0, 1] = fixed[ring - p]
             top = 1
             while top > 0:
                 top -= 1
@@ -295,19 +321,22 @@ def block_pair_energy(lo, hi, coords, mapped, g, origin, pos, types, ff, excl_st
                 leaf_a = left[a] < 0
                 leaf_b = left[b] < 0
                 if leaf_a and leaf_b:
-                    u, ok = _leaf_pairs(node_lo[a], node_hi[a], node_lo[b], node_hi[b], coords, pos, types, kinds,
-                                        params, tables, excl_start, excl, reach2, cap, r2_hard, overlap)
+                    u, ok = _leaf_pairs(node_lo[a], node_hi[a], node_lo[b], node_hi[b], center[b], radius[b], coords,
+                                        pos, types, kinds, params, tables, excl_start, excl, reach, cap, r2_hard,
+                                        overlap)
                     if not ok:
                         return 0.0, False
                     energy += u
                     if energy > limit:
                         return math.inf, True
                 elif leaf_b or (not leaf_a and radius[a] >= radius[b]):
-                    pairs[top, 0], pairs[top, 1] = left[a], b
-                    pairs[top + 1, 0], pairs[top + 1, 1] = left[a] + 1, b
+                    far, nearer = _near_child_last(a, near, left, node_hi)
+                    pairs[top, 0], pairs[top, 1] = far, b
+                    pairs[top + 1, 0], pairs[top + 1, 1] = nearer, b
                     top += 2
                 else:
-                    pairs[top, 0], pairs[top, 1] = a, left[b]
-                    pairs[top + 1, 0], pairs[top + 1, 1] = a, left[b] + 1
+                    far, nearer = _near_child_last(b, near, left, node_hi)
+                    pairs[top, 0], pairs[top, 1] = a, far
+                    pairs[top + 1, 0], pairs[top + 1, 1] = a, nearer
                     top += 2
     return energy, True
