@@ -14,7 +14,7 @@ Usage::
     NUMBA_NUM_THREADS=1 python analysis/statics_efficiency.py N T OUT.json [--steps S] [--dynamics-steps D]
         [--mixes SEGMENT:PIVOTS[:ACCEPTED] ...]
 
-ACCEPTED, when given, tunes the pivot count at the end of equilibration (``accepted_pivots_per_segment``);
+ACCEPTED, when given, tunes the pivot count at the end of equilibration (``accepted_pivots_per_bead``, per bead);
 PIVOTS is then the count used until the tuning.
 """
 
@@ -31,8 +31,8 @@ from beadsim.runner import run
 
 MODEL = Path(__file__).resolve().parent.parent / "inputs" / "lj_chain_model.toml"
 
-#: Default (segment_steps, pivot_moves_per_segment, accepted_pivots_per_segment or None) tried.
-MIXES = [(20, 100, None), (20, 20, None), (100, 100, None), (200, 20, None), (20, 20, 3.0)]
+#: Default (segment_steps, pivot_moves_per_segment, accepted_pivots_per_bead or None) tried.
+MIXES = [(20, 100, None), (20, 20, None), (100, 100, None), (200, 20, None), (20, 20, 0.4)]
 
 
 def parse_mix(text):
@@ -48,7 +48,7 @@ def settings_for(n_beads, temperature, steps, mix=None):
     s["output"].update(frame_interval=steps, table_interval=20 if mix else 100, checkpoint_interval=10 * steps)
     if mix is not None:
         s["sampling"].update(method="hybrid", segment_steps=mix[0], pivot_moves_per_segment=mix[1],
-                             accepted_pivots_per_segment=mix[2])
+                             accepted_pivots_per_bead=mix[2])
     return s
 
 

@@ -98,12 +98,12 @@ SCHEMA = {
         "segment_steps": (int, 1000, AT_LEAST_ONE, "hybrid: integrator steps between two rounds of moves"),
         "pivot_moves_per_segment": (int, 100, ("an integer >= 0", lambda v: v >= 0),
                                     "hybrid: pivot moves (rotate or reflect one end of a chain) per round"),
-        "accepted_pivots_per_segment": (float, None, POSITIVE,
-                                        "hybrid: tune the pivot moves per round at the end of equilibration so "
-                                        "that about this many are accepted per round (from the acceptance a "
-                                        "measured over the second half of equilibration: ceil(this / a) clipped "
-                                        "to 5-400, or 2 when a < 4 %); pivot_moves_per_segment is the count until "
-                                        "then; unset: a fixed count"),
+        "accepted_pivots_per_bead": (float, None, POSITIVE,
+                                     "hybrid: tune the pivot moves per round at the end of equilibration so that "
+                                     "about this many per bead are accepted per round (from the acceptance a "
+                                     "measured over the second half of equilibration, N beads: ceil(this N / a) "
+                                     "clipped to 5-4N, or 2 when a < 4 %); pivot_moves_per_segment is the count "
+                                     "until then; unset: a fixed count"),
         "crankshaft_moves_per_segment": (int, 0, ("an integer >= 0", lambda v: v >= 0),
                                          "hybrid: crankshaft moves (one interior bead about its neighbours' "
                                          "axis) per round"),
@@ -301,8 +301,8 @@ def _check_sampling(s, source):
     if sm["pivot_moves_per_segment"] == 0 and sm["crankshaft_moves_per_segment"] == 0:
         raise InputError(f"{where}: pivot_moves_per_segment and crankshaft_moves_per_segment are both 0; "
                          "set at least one of them > 0")
-    if sm["accepted_pivots_per_segment"] is not None and sm["pivot_moves_per_segment"] == 0:
-        raise InputError(f"{where}: accepted_pivots_per_segment tunes the pivot count, so pivot_moves_per_segment "
+    if sm["accepted_pivots_per_bead"] is not None and sm["pivot_moves_per_segment"] == 0:
+        raise InputError(f"{where}: accepted_pivots_per_bead tunes the pivot count, so pivot_moves_per_segment "
                          "(the count used until the tuning) must be > 0")
     if max(s["chains"]["length"]) < 3:
         raise InputError(f"{where} needs chains of 3 or more beads ([chains] length), got "

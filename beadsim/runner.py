@@ -109,7 +109,7 @@ def build_simulation(settings):
         HybridSampler(sim, segment_steps=sm["segment_steps"], pivot_moves=sm["pivot_moves_per_segment"],
                       crankshaft_moves=sm["crankshaft_moves_per_segment"],
                       crankshaft_max_angle=sm["crankshaft_max_angle"],
-                      accepted_pivots=sm["accepted_pivots_per_segment"],
+                      accepted_pivots_per_bead=sm["accepted_pivots_per_bead"],
                       tune_until=settings["run"]["equilibration_steps"])
     return sim
 

@@ -57,7 +57,7 @@ def _sampler(sim, name, warmup_steps):
         return None
     if name == "hybrid":
         return HybridSampler(sim, segment_steps=SEGMENT_STEPS, pivot_moves=STUDY_HYBRID["pivot_moves_per_segment"],
-                             accepted_pivots=STUDY_HYBRID["accepted_pivots_per_segment"], tune_until=warmup_steps)
+                             accepted_pivots_per_bead=STUDY_HYBRID["accepted_pivots_per_bead"], tune_until=warmup_steps)
     return HybridSampler(sim, segment_steps=SEGMENT_STEPS, **PREVIOUS_MOVES)
 
 

@@ -11,26 +11,27 @@ positions and velocities invariant; velocities are independent of positions in
 that distribution, so they are kept as they are across a move. After the moves
 the Verlet list is rebuilt and the forces recomputed.
 
-Tuned pivot count: with ``accepted_pivots`` set, the pivot moves per round are
-chosen once, at the first round at or after step ``tune_until`` (the end of
-equilibration), from the pivot acceptance ``a`` measured over the rounds after
-``tune_until / 2``: ``ceil(accepted_pivots / a)`` clipped to
-[:data:`MIN_TUNED_PIVOTS`, :data:`MAX_TUNED_PIVOTS`] when ``a`` is at least
-:data:`MIN_PIVOT_ACCEPTANCE`, and :data:`FEW_PIVOTS` below it. Rounds after that
-use the fixed count, so production is an ordinary Markov chain with a
-Boltzmann-invariant kernel; the adaptation touches equilibration only.
+Tuned pivot count: with ``accepted_pivots_per_bead`` set, the pivot moves per
+round are chosen once, at the first round at or after step ``tune_until`` (the
+end of equilibration), from the pivot acceptance ``a`` measured over the rounds
+after ``tune_until / 2``: ``ceil(accepted_pivots_per_bead * n / a)`` for ``n``
+beads, clipped to [:data:`MIN_TUNED_PIVOTS`, :data:`MAX_TUNED_PIVOTS_PER_BEAD` n]
+when ``a`` is at least :data:`MIN_PIVOT_ACCEPTANCE`, and :data:`FEW_PIVOTS` below
+it. Rounds after that use the fixed count, so production is an ordinary Markov
+chain with a Boltzmann-invariant kernel; the adaptation touches equilibration
+only.
 
-Why two branches (measured in analysis/statics_speed.md, LJ chains of 512 beads,
-rounds of 20 steps): per round, the decorrelation rate of Rg grows with the pivot
-count P, ``1/g = alpha + beta P`` with ``beta`` proportional to the acceptance,
-and the cost is ``c0 + c_p P``; the independent samples per CPU-second,
-``(alpha + beta P) / (c0 + c_p P)``, are then monotonic in P, but the slope
-changes with N. Near theta, about 40 accepted pivots per round (190-310 pivots)
-against about 160 (800-1,000) gave 55 against 33 samples per CPU-second at
-N = 256, 10-22 against 12-29 at N = 512 (g scatters by a factor of two between
-runs there) and 5.1 against 5.0 at N = 1,024; in the globule (1.4 %) 20 to
-1,000 pivots per round gave the same rate within errors, so the cheapest round,
-with few pivots, is kept there.
+Why a count per bead (measured in analysis/statics_speed.md, LJ chains near
+theta, rounds of 20 steps, one run of 120 CPU-seconds per entry): the
+statistical inefficiency of Rg^2 falls with the pivot count until about two
+rounds, where the Langevin part of the round sets the pace; past that, pivots
+only cost. That happens at about 0.25-0.6 accepted pivots per bead per round:
+at N = 256, 200 / 500 / 1,000 pivots gave 67 / 95 / 59 independent samples per
+CPU-second; at N = 512, 500 / 1,000 / 2,000 gave 24 / 27 / 39; at N = 1,024,
+500 / 1,000 / 2,000 / 4,000 gave 7.6 / 10.5 / 17 / 10. A fixed count per round is
+too many for short chains and too few for long ones. In the globule (1.4 %
+accepted) 20 to 1,000 pivots per round gave the same rate within errors, so the
+cheapest round, with few pivots, is kept there.
 """
 
 import logging
@@ -61,10 +62,10 @@ the sampling and a few pivots still move chain ends (the fastest mix measured th
 MIN_TUNED_PIVOTS = 5
 """Fewest pivot moves per round a tuned count may take (our choice: keeps chain-scale moves in every round)."""
 
-MAX_TUNED_PIVOTS = 400
-"""Most pivot moves per round a tuned count may take (our choice: at N = 1,024 near theta 310 and 1,000
-pivots per 20 steps gave the same rate, analysis/statics_speed.md; near the collapse, where 4-10 % of pivots
-are accepted, an uncapped count would make those points the slowest of a study)."""
+MAX_TUNED_PIVOTS_PER_BEAD = 4.0
+"""Most pivot moves per round and bead a tuned count may take (our choice: near theta 2 per bead was as fast
+as 4 at N = 1,024, analysis/statics_speed.md; near the collapse, where 4-10 % of pivots are accepted, an
+uncapped count would make those points the slowest of a study)."""
 
 OVERLAP_GRID = 4096
 """Distances in (0, cutoff] at which the pair potentials are evaluated to find the overlap radius (our choice:
@@ -177,10 +178,10 @@ class HybridSampler:
         Moves of each kind per round (>= 0, not both 0).
     crankshaft_max_angle : float
         Largest crankshaft rotation, degrees (0 < angle <= 180).
-    accepted_pivots : float, optional
-        Tune the pivot moves per round so that about this many are accepted per round, or
-        use :data:`FEW_PIVOTS` when pivots are rarely accepted (module notes); ``pivot_moves``
-        is the count used until the tuning.
+    accepted_pivots_per_bead : float, optional
+        Tune the pivot moves per round so that about this many per bead of the system are accepted
+        per round, or use :data:`FEW_PIVOTS` when pivots are rarely accepted (module notes);
+        ``pivot_moves`` is the count used until the tuning.
     tune_until : int
         Step at or after which the pivot count is tuned (the end of equilibration).
     overlap_energy : float or None
@@ -216,7 +217,8 @@ class HybridSampler:
     """
 
     def __init__(self, sim, segment_steps=1000, pivot_moves=100, crankshaft_moves=0, crankshaft_max_angle=180.0,
-                 accepted_pivots=None, tune_until=0, overlap_energy=OVERLAP_ENERGY, tree_min_beads=TREE_MIN_BEADS,
+                 accepted_pivots_per_bead=None, tune_until=0, overlap_energy=OVERLAP_ENERGY,
+                 tree_min_beads=TREE_MIN_BEADS,
                  attach=True):
         system = sim.system
         if system.box.periodic:
@@ -232,11 +234,12 @@ class HybridSampler:
         if not any(self.moves.values()):
             raise InputError("hybrid sampling: pivot_moves and crankshaft_moves are both 0; ask for moves of at "
                              "least one kind, or use method = 'dynamics'")
-        self.accepted_pivots = None if accepted_pivots is None else positive(accepted_pivots, "accepted_pivots")
+        self.accepted_pivots = (None if accepted_pivots_per_bead is None else
+                                positive(accepted_pivots_per_bead, "accepted_pivots_per_bead") * system.n_beads)
         self.tune_until = positive_int(tune_until, "tune_until", allow_zero=True)
         if self.accepted_pivots is not None and self.moves["pivot"] == 0:
-            raise InputError("hybrid sampling: accepted_pivots tunes the pivot count, so pivot_moves must be > 0 "
-                             "(the count used before the tuning)")
+            raise InputError("hybrid sampling: accepted_pivots_per_bead tunes the pivot count, so pivot_moves must "
+                             "be > 0 (the count used before the tuning)")
         angle = positive(crankshaft_max_angle, "crankshaft_max_angle")
         if angle > 180.0:
             raise InputError(f"crankshaft_max_angle: must lie in (0, 180] degrees, got {crankshaft_max_angle!r}")
@@ -338,7 +341,8 @@ class HybridSampler:
             self.moves["pivot"] = FEW_PIVOTS
         else:
             wanted = math.ceil(self.accepted_pivots * tried / took)
-            self.moves["pivot"] = int(min(MAX_TUNED_PIVOTS, max(MIN_TUNED_PIVOTS, wanted)))
+            most = math.ceil(MAX_TUNED_PIVOTS_PER_BEAD * self.sim.system.n_beads)
+            self.moves["pivot"] = int(min(most, max(MIN_TUNED_PIVOTS, wanted)))
         self.tuning[2] = 1
         log.info("hybrid sampling: pivot acceptance %.3g over the tuning window; %d pivot moves per round from "
                  "step %d", took / tried if tried else float("nan"), self.moves["pivot"], step)

@@ -107,10 +107,10 @@ def _control_values(study, src):
 
 #: Hybrid settings a study gives an isolated-chain model whose base input names no sampling method:
 #: rounds of 20 Langevin steps, each followed by pivots whose count is tuned at the end of equilibration
-#: (100 until then): about 40 accepted per round where pivots are accepted often (coils), 2 pivots per
-#: round where they are not (globules). Measured in analysis/statics_speed.md (engine.hybrid module notes).
+#: (100 until then): about 0.4 accepted per bead per round where pivots are accepted often (coils), 2 pivots
+#: per round where they are not (globules). Measured in analysis/statics_speed.md (engine.hybrid module notes).
 STUDY_HYBRID = {"method": "hybrid", "segment_steps": 20, "pivot_moves_per_segment": 100,
-                "accepted_pivots_per_segment": 40.0, "crankshaft_moves_per_segment": 0}
+                "accepted_pivots_per_bead": 0.4, "crankshaft_moves_per_segment": 0}
 
 
 def choose_sampler(base, explicit):
@@ -143,9 +143,10 @@ def choose_sampler(base, explicit):
     sampling.update(STUDY_HYBRID)
     return {"settings": sampling,
             "note": "hybrid (the base input names no [sampling] method, so each isolated chain is sampled by "
-                    "Langevin segments of 20 steps and pivot moves tuned per point: about 40 accepted per "
-                    "segment in coils, 2 per segment where pivots are rarely accepted; factorized Metropolis "
-                    "rule, tree pair sums; the pivot count of each point is in results.csv; statics only)"}
+                    "Langevin segments of 20 steps and pivot moves tuned per point: about 0.4 accepted per "
+                    "bead per segment in coils, 2 per segment where pivots are rarely accepted; factorized "
+                    "Metropolis rule, tree pair sums; the pivot count of each point is in results.csv; statics "
+                    "only)"}
 
 
 def _check_control(base, control, src):

@@ -219,12 +219,12 @@ def test_hybrid_run_resumes_bit_for_bit():
 
 
 def test_tuned_pivot_count_follows_the_acceptance_of_the_second_half_of_equilibration():
-    """With accepted_pivots = 3 and tune_until = 1,000 steps (rounds of 20 steps), the pivot count from
-    step 1,000 on is ceil(3 / a), a the pivot acceptance of the rounds after step 500, clipped to
-    [MIN_TUNED_PIVOTS, MAX_TUNED_PIVOTS] (a is well above MIN_PIVOT_ACCEPTANCE here). Until the tuning the
+    """With 1/16 accepted pivots per bead (3 for 48 beads) and tune_until = 1,000 steps (rounds of 20 steps),
+    the pivot count from step 1,000 on is ceil(3 / a), a the pivot acceptance of the rounds after step 500,
+    clipped to [MIN_TUNED_PIVOTS, MAX_TUNED_PIVOTS_PER_BEAD x 48] (a is well above MIN_PIVOT_ACCEPTANCE here). Until the tuning the
     tuned sampler draws the same moves as a fixed-count one, so a is read from the fixed-count sampler's
     own counters at steps 500 and 1,000."""
-    from beadsim.engine.hybrid import MAX_TUNED_PIVOTS, MIN_PIVOT_ACCEPTANCE, MIN_TUNED_PIVOTS
+    from beadsim.engine.hybrid import MAX_TUNED_PIVOTS_PER_BEAD, MIN_PIVOT_ACCEPTANCE, MIN_TUNED_PIVOTS
     system = bs.build_chains(48, seed=6)
     ff = bs.ForceField(bs.LennardJones(cutoff=2.5), bs.FENE())
     sim, fixed = _sampler(system, ff, kT=3.0, segment_steps=20, pivot_moves=10)
@@ -235,8 +235,8 @@ def test_tuned_pivot_count_follows_the_acceptance_of_the_second_half_of_equilibr
     sim.run(500)
     tried, took = fixed.counts["pivot"] - at_half
     assert took > 2 * MIN_PIVOT_ACCEPTANCE * tried
-    expected = min(MAX_TUNED_PIVOTS, max(MIN_TUNED_PIVOTS, math.ceil(3 * tried / took)))
-    sim2, tuned = _sampler(start, ff, kT=3.0, segment_steps=20, pivot_moves=10, accepted_pivots=3.0,
+    expected = min(MAX_TUNED_PIVOTS_PER_BEAD * 48, max(MIN_TUNED_PIVOTS, math.ceil(3 * tried / took)))
+    sim2, tuned = _sampler(start, ff, kT=3.0, segment_steps=20, pivot_moves=10, accepted_pivots_per_bead=3 / 48,
                            tune_until=1_000)
     sim2.run(980)
     assert tuned.moves["pivot"] == 10 and tuned.acceptance()["pivot"]["tuned_moves_per_segment"] is None
@@ -247,12 +247,12 @@ def test_tuned_pivot_count_follows_the_acceptance_of_the_second_half_of_equilibr
 
 
 def test_phantom_chain_tunes_to_the_fewest_pivots():
-    """A chain without pair forces accepts every pivot (a = 1), so ceil(3 / a) = 3 is raised to
-    MIN_TUNED_PIVOTS."""
+    """A chain without pair forces accepts every pivot (a = 1), so 3 / 16 accepted per bead of 16 beads
+    asks for ceil(3 / a) = 3 pivots, which is raised to MIN_TUNED_PIVOTS."""
     from beadsim.engine.hybrid import MIN_TUNED_PIVOTS
     system = bs.build_chains(16, seed=4, bond_length=0.5, min_distance=0.3)
     sim, s = _sampler(system, bs.ForceField(bs.NoPair(), bs.HarmonicBond(10.0, 0.0)), segment_steps=10,
-                      pivot_moves=40, accepted_pivots=3.0, tune_until=200)
+                      pivot_moves=40, accepted_pivots_per_bead=3 / 16, tune_until=200)
     sim.run(300)
     assert s.moves["pivot"] == MIN_TUNED_PIVOTS
 
@@ -263,7 +263,7 @@ def test_rarely_accepted_pivots_tune_to_few_pivots():
     from beadsim.engine.hybrid import FEW_PIVOTS, MIN_PIVOT_ACCEPTANCE
     system = bs.build_chains(48, seed=6)
     sim, s = _sampler(system, bs.ForceField(bs.LennardJones(cutoff=2.5), bs.FENE()), kT=0.8, segment_steps=20,
-                      pivot_moves=10, accepted_pivots=8.0, tune_until=6_000)
+                      pivot_moves=10, accepted_pivots_per_bead=0.2, tune_until=6_000)
     sim.minimize()
     sim.run(6_000)
     tried, took = s.tuning[:2]
@@ -275,7 +275,7 @@ def test_tuned_hybrid_run_resumes_bit_for_bit_across_the_tuning():
     the tuning exactly as the uninterrupted run, and one taken after it keeps the tuned count."""
     system = bs.build_chains(32, seed=6)
     ff = bs.ForceField(bs.LennardJones(cutoff=2.5), bs.FENE())
-    kwargs = dict(kT=2.0, segment_steps=50, pivot_moves=20, accepted_pivots=2.0, tune_until=1_000)
+    kwargs = dict(kT=2.0, segment_steps=50, pivot_moves=20, accepted_pivots_per_bead=0.0625, tune_until=1_000)
     sim, s = _sampler(system, ff, **kwargs)
     sim.minimize()
     fresh = sim.system.copy()
@@ -312,9 +312,10 @@ def test_moves_keep_velocities_and_refresh_forces():
     (lambda: bs.build_chains(16, seed=1), bs.BAOABLangevin(0.005), {"crankshaft_max_angle": 200.0}, "(0, 180]"),
     (lambda: bs.build_chains(16, seed=1), bs.BAOABLangevin(0.005), {"segment_steps": 0}, "segment_steps"),
     (lambda: bs.build_chains([2, 2], seed=1), bs.BAOABLangevin(0.005), {}, "interior bead"),
-    (lambda: bs.build_chains(16, seed=1), bs.BAOABLangevin(0.005), {"pivot_moves": 0, "crankshaft_moves": 5,
-                                                                     "accepted_pivots": 2.0}, "pivot_moves must be"),
-    (lambda: bs.build_chains(16, seed=1), bs.BAOABLangevin(0.005), {"accepted_pivots": -1.0}, "accepted_pivots"),
+    (lambda: bs.build_chains(16, seed=1), bs.BAOABLangevin(0.005),
+     {"pivot_moves": 0, "crankshaft_moves": 5, "accepted_pivots_per_bead": 0.1}, "pivot_moves must"),
+    (lambda: bs.build_chains(16, seed=1), bs.BAOABLangevin(0.005), {"accepted_pivots_per_bead": -1.0},
+     "accepted_pivots_per_bead"),
 ])
 def test_bad_hybrid_settings_are_refused(build, integrator, kwargs, message):
     sim = bs.Simulation(build(), bs.ForceField(bs.WCA(), bs.FENE()), integrator, seed=1)

@@ -28,7 +28,7 @@ QUANTITIES = ("rg2", "re2", "potential_energy")
 SAMPLERS = {
     "dynamics": None,
     "previous_moves": {"overlap_energy": None, "tree_min_beads": None},
-    "current_moves": {"tree_min_beads": 4},  # the tree for every pivot of 4 or more beads
+    "current_moves": {},  # the shipped defaults: factorized rule, every pivot summed over the tree
 }
 
 

@@ -34,7 +34,7 @@ def test_isolated_chain_without_a_sampling_method_gets_tuned_hybrid_sampling(tmp
     assert study["sampling"]["note"].startswith("hybrid")
     settings = point_settings(base, study, _point(study, 16))
     assert {k: settings["sampling"][k] for k in STUDY_HYBRID} == STUDY_HYBRID
-    assert settings["sampling"]["accepted_pivots_per_segment"] == 40.0
+    assert settings["sampling"]["accepted_pivots_per_bead"] == 0.4
     # a dimer has no interior bead for pivot moves: it keeps the base input's (default) dynamics
     assert point_settings(base, study, _point(study, 2))["sampling"]["method"] == "dynamics"
 
