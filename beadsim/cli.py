@@ -89,10 +89,11 @@ def _statics_bench(args):
 
     if not args.quiet:
         print("beadsim: statics benchmark (one thread; compiling kernels on first use); this takes "
-              f"about {len(args.sizes) * (3 * args.cpu_seconds + 60) / 60:.0f} minutes or more", file=sys.stderr)
+              f"about {len(args.sizes) * args.replicas * (len(args.samplers) * args.cpu_seconds + 60) / 60:.0f} "
+              "minutes or more", file=sys.stderr)
     log = (lambda line: None) if args.quiet else (lambda line: print(f"beadsim: {line}", file=sys.stderr))
     report = run_statics_benchmark(sizes=args.sizes, temperature=args.temperature, cpu_seconds=args.cpu_seconds,
-                                   samplers=args.samplers, log=log)
+                                   samplers=args.samplers, log=log, replicas=args.replicas, seed=args.seed)
     print(format_statics(report))
     if args.json:
         Path(args.json).write_text(json.dumps(report, indent=2) + "\n", encoding="utf-8")
@@ -166,6 +167,9 @@ def build_parser():
                    "length (--statics; default 120)")
     p.add_argument("--samplers", nargs="+", choices=list(STATICS_SAMPLERS), default=list(STATICS_SAMPLERS),
                    help="samplers to measure (--statics; default all)")
+    p.add_argument("--replicas", type=int, default=1, help="independent repetitions of each measurement, each from "
+                   "its own equilibrated chain; the summary gives their mean and its standard error (--statics)")
+    p.add_argument("--seed", type=int, default=1, help="first seed of the replicas (--statics; default 1)")
     p.set_defaults(func=_cmd_bench)
 
     p = sub.add_parser("vet", help="check a model before production: timestep, forces, tables, bond crossing, "

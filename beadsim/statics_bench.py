@@ -27,6 +27,7 @@ import time
 import numpy as np
 from scipy.stats import linregress
 
+from ._validate import positive_int
 from .analysis.stats import inefficiency_estimate, summarize
 from .engine.hybrid import HybridSampler
 from .engine.integrators import BAOABLangevin
@@ -150,7 +151,8 @@ def cost_exponent(sizes, rates):
 
 
 def run_statics_benchmark(sizes=(256, 512, 1024), temperature=3.3, cpu_seconds=120.0,
-                          samplers=("hybrid", "previous-moves", "dynamics"), log=print, equilibration_rounds=None):
+                          samplers=("hybrid", "previous-moves", "dynamics"), log=print, equilibration_rounds=None,
+                          replicas=1, seed=1):
     """The statics benchmark at each chain length; JSON-ready dict.
 
     Parameters
@@ -160,28 +162,48 @@ def run_statics_benchmark(sizes=(256, 512, 1024), temperature=3.3, cpu_seconds=1
     temperature : float
         kT, epsilon (3.3: a little above the model's theta temperature, beadsim/data/theta_points.toml).
     cpu_seconds : float
-        Production CPU budget of each sampler at each length.
+        Production CPU budget of each sampler at each length, per replica.
     samplers : sequence of str
     log : callable
         Receives one line per measurement.
     equilibration_rounds : int, optional
         Rounds of tuned hybrid sampling before the samplers start; default ``max(4000, 4 N)``.
+    replicas : int
+        Independent repetitions of each measurement, each from its own equilibrated chain (seeds
+        ``seed + 2 r`` for the chain and ``seed + 2 r + 1`` for the samplers, replica ``r``). One run
+        pins a rate only to a factor of about 1.5 near theta (its slowest drift is long), so the summary
+        gives the mean over replicas with the standard error of that mean when there are two or more.
+    seed : int
+        First seed.
+
+    Returns
+    -------
+    dict
+        ``runs`` (one entry per length, sampler and replica), ``rates`` (one per length and sampler: mean over
+        replicas, its standard error or None with one replica, and the replica count), ``summary`` (ratios of
+        the mean rates, cost exponent), machine and date.
     """
     from .bench import machine_description
 
+    replicas = positive_int(replicas, "--replicas")
     set_threads(1)
     results = []
     for n in sizes:
         equilibration = max(4000, 4 * n) if equilibration_rounds is None else equilibration_rounds
-        log(f"statics N = {n}: equilibrating ({equilibration} rounds of hybrid sampling)")
-        system = equilibrated_chain(n, temperature, equilibration)
-        for name in samplers:
-            entry = dict(measure_sampler(system, temperature, name, cpu_seconds, warmup_rounds=500), n_beads=n)
-            results.append(entry)
-            log(f"statics N = {n}, {name}: {entry['per_cpu_second']:.3g} independent Rg^2 samples per CPU-second"
-                + (" (upper bound)" if entry["upper_bound"] else ""))
-    summary = {"temperature": temperature, "cpu_seconds_per_run": cpu_seconds}
-    rate = {(r["n_beads"], r["sampler"]): r for r in results}
+        for r in range(replicas):
+            log(f"statics N = {n}, replica {r + 1} of {replicas}: equilibrating ({equilibration} rounds of hybrid "
+                "sampling)")
+            system = equilibrated_chain(n, temperature, equilibration, seed=seed + 2 * r)
+            for name in samplers:
+                entry = dict(measure_sampler(system, temperature, name, cpu_seconds, warmup_rounds=500,
+                                             seed=seed + 2 * r + 1), n_beads=n, replica=r)
+                results.append(entry)
+                log(f"statics N = {n}, {name}, replica {r + 1}: {entry['per_cpu_second']:.3g} independent Rg^2 "
+                    "samples per CPU-second" + (" (upper bound)" if entry["upper_bound"] else ""))
+    rates = [_mean_rate([e for e in results if e["n_beads"] == n and e["sampler"] == name])
+             for n in sizes for name in samplers]
+    rate = {(r["n_beads"], r["sampler"]): r for r in rates}
+    summary = {"temperature": temperature, "cpu_seconds_per_run": cpu_seconds, "replicas": replicas}
     ratios = {}
     for n in sizes:
         new, old = rate.get((n, "hybrid")), rate.get((n, "previous-moves"))
@@ -197,21 +219,36 @@ def run_statics_benchmark(sizes=(256, 512, 1024), temperature=3.3, cpu_seconds=1
                       "standard error of the slope from the scatter of the lengths about the power law; "
                       "it does not see a bias common to all lengths (runs too short for their slowest drift)"}
     return {"machine": machine_description(), "date": time.strftime("%Y-%m-%d %H:%M UTC", time.gmtime()),
-            "summary": summary, "runs": results}
+            "summary": summary, "rates": rates, "runs": results}
+
+
+def _mean_rate(runs):
+    """Mean rate of the replicas of one length and sampler, with the standard error of the mean (None for one)."""
+    values = np.array([r["per_cpu_second"] for r in runs])
+    return {"n_beads": runs[0]["n_beads"], "sampler": runs[0]["sampler"], "replicas": len(runs),
+            "per_cpu_second": float(values.mean()),
+            "error": float(values.std(ddof=1) / math.sqrt(values.size)) if values.size >= 2 else None,
+            "upper_bound": any(r["upper_bound"] for r in runs)}
 
 
 def format_statics(report):
-    """The statics benchmark as a plain-text table and a summary line."""
-    head = (f"{'N':>6}  {'sampler':<24}{'pivots/round':>13}{'acceptance':>11}{'ms/round':>10}{'g (rounds)':>11}"
-            f"{'indep.':>8}{'per CPU-s':>11}")
+    """The statics benchmark as a plain-text table (one line per run), the mean rates and a summary line."""
+    head = (f"{'N':>6}  {'sampler':<18}{'replica':>8}{'pivots/round':>13}{'acceptance':>11}{'ms/round':>10}"
+            f"{'g (rounds)':>11}{'indep.':>8}{'per CPU-s':>11}")
     lines = [head, "-" * len(head)]
     for r in report["runs"]:
         acc = f"{r['pivot_acceptance']:.3f}" if r.get("pivot_acceptance") is not None else "-"
         rate = f"{'<=' if r['upper_bound'] else ''}{r['per_cpu_second']:.3g}"
-        lines.append(f"{r['n_beads']:>6}  {r['sampler']:<24}{r.get('pivots_per_round', '-'):>13}{acc:>11}"
-                     f"{r['ms_per_round']:>10.2f}{max(r['g_autocorrelation'], r['g_blocking'] or 0):>11.1f}"
+        lines.append(f"{r['n_beads']:>6}  {r['sampler']:<18}{r['replica'] + 1:>8}{r.get('pivots_per_round', '-'):>13}"
+                     f"{acc:>11}{r['ms_per_round']:>10.2f}{max(r['g_autocorrelation'], r['g_blocking'] or 0):>11.1f}"
                      f"{r['independent_samples']:>8.0f}{rate:>11}")
     s = report["summary"]
+    if s["replicas"] > 1:
+        lines += ["", "mean over replicas (independent Rg^2 samples per CPU-second, standard error of the mean):"]
+        for r in report["rates"]:
+            bound = " (upper bound)" if r["upper_bound"] else ""
+            lines.append(f"{r['n_beads']:>6}  {r['sampler']:<18}{r['per_cpu_second']:>10.3g} +- {r['error']:.2g}"
+                         f"{bound}")
     tail = f"kT = {s['temperature']}"
     if s["ratio_hybrid_to_previous_moves"]:
         tail += "; hybrid / previous moves: " + ", ".join(

@@ -1,6 +1,7 @@
 """`beadsim bench` bookkeeping on a tiny system (no timing is asserted: speed is recorded, not tested)."""
 
 import numpy as np
+import pytest
 
 import beadsim as bs
 from beadsim import bench
@@ -76,3 +77,24 @@ def test_statics_benchmark_reports_the_exponent_with_its_error():
     x = report["summary"]["cost_exponent_hybrid"]
     assert np.isfinite(x["value"]) and x["error"] is not None and x["error"] >= 0
     assert f"cost exponent of the hybrid sampler in N: {x['value']} +- {x['error']}" in format_statics(report)
+
+
+def test_statics_benchmark_replicas_give_the_mean_rate_and_its_standard_error():
+    """Two replicas of one short chain: the summary rate is the mean of the two runs' rates and its error the
+    standard error of that mean, which for two values is half their difference (exact)."""
+    from beadsim.statics_bench import format_statics, run_statics_benchmark
+    report = run_statics_benchmark(sizes=(12,), cpu_seconds=0.3, samplers=("hybrid",), log=lambda line: None,
+                                   equilibration_rounds=100, replicas=2, seed=5)
+    a, b = (r["per_cpu_second"] for r in report["runs"])
+    (mean,) = report["rates"]
+    assert [r["replica"] for r in report["runs"]] == [0, 1] and mean["replicas"] == 2
+    assert mean["per_cpu_second"] == pytest.approx((a + b) / 2, rel=1e-12)
+    assert mean["error"] == pytest.approx(abs(a - b) / 2, rel=1e-12)
+    assert "mean over replicas" in format_statics(report)
+
+
+def test_statics_benchmark_refuses_zero_replicas():
+    from beadsim.errors import InputError
+    from beadsim.statics_bench import run_statics_benchmark
+    with pytest.raises(InputError, match="--replicas"):
+        run_statics_benchmark(sizes=(12,), replicas=0, log=lambda line: None)
