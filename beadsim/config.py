@@ -102,7 +102,7 @@ SCHEMA = {
                                      "hybrid: tune the pivot moves per round at the end of equilibration so that "
                                      "about this many per bead are accepted per round (from the acceptance a "
                                      "measured over the second half of equilibration, N beads: ceil(this N / a) "
-                                     "clipped to 5-4N, or 2 when a < 4 %); pivot_moves_per_segment is the count "
+                                     "clipped to 5-2000, or 2 when a < 4 %); pivot_moves_per_segment is the count "
                                      "until then; unset: a fixed count"),
         "crankshaft_moves_per_segment": (int, 0, ("an integer >= 0", lambda v: v >= 0),
                                          "hybrid: crankshaft moves (one interior bead about its neighbours' "

@@ -15,8 +15,7 @@ Tuned pivot count: with ``accepted_pivots_per_bead`` set, the pivot moves per
 round are chosen once, at the first round at or after step ``tune_until`` (the
 end of equilibration), from the pivot acceptance ``a`` measured over the rounds
 after ``tune_until / 2``: ``ceil(accepted_pivots_per_bead * n / a)`` for ``n``
-beads, clipped to [:data:`MIN_TUNED_PIVOTS`, :data:`MAX_TUNED_PIVOTS_PER_BEAD` n]
-when ``a`` is at least :data:`MIN_PIVOT_ACCEPTANCE`, and :data:`FEW_PIVOTS` below
+beads, clipped to [:data:`MIN_TUNED_PIVOTS`, :data:`MAX_TUNED_PIVOTS`] when ``a`` is at least :data:`MIN_PIVOT_ACCEPTANCE`, and :data:`FEW_PIVOTS` below
 it. Rounds after that use the fixed count, so production is an ordinary Markov
 chain with a Boltzmann-invariant kernel; the adaptation touches equilibration
 only.
@@ -29,7 +28,9 @@ only cost. That happens at about 0.25-0.6 accepted pivots per bead per round:
 at N = 256, 200 / 500 / 1,000 pivots gave 67 / 95 / 59 independent samples per
 CPU-second; at N = 512, 500 / 1,000 / 2,000 gave 24 / 27 / 39; at N = 1,024,
 500 / 1,000 / 2,000 / 4,000 gave 7.6 / 10.5 / 17 / 10. A fixed count per round is
-too many for short chains and too few for long ones. In the globule (1.4 %
+too many for short chains and too few for long ones. Past about 2,000 pivots per
+round more only cost: at N = 2,048 the Rg^2 inefficiency stayed at 13-19 rounds
+from 400 to 8,192 pivots per round (:data:`MAX_TUNED_PIVOTS`). In the globule (1.4 %
 accepted) 20 to 1,000 pivots per round gave the same rate within errors, so the
 cheapest round, with few pivots, is kept there.
 """
@@ -62,10 +63,11 @@ the sampling and a few pivots still move chain ends (the fastest mix measured th
 MIN_TUNED_PIVOTS = 5
 """Fewest pivot moves per round a tuned count may take (our choice: keeps chain-scale moves in every round)."""
 
-MAX_TUNED_PIVOTS_PER_BEAD = 4.0
-"""Most pivot moves per round and bead a tuned count may take (our choice: near theta 2 per bead was as fast
-as 4 at N = 1,024, analysis/statics_speed.md; near the collapse, where 4-10 % of pivots are accepted, an
-uncapped count would make those points the slowest of a study)."""
+MAX_TUNED_PIVOTS = 2000
+"""Most pivot moves per round a tuned count may take (measured near theta, analysis/statics_speed.md: at
+N = 1,024, 2,000 pivots per round were faster than 4,000; at N = 2,048, 8,192 gave a quarter of the rate of
+400, because there the Langevin part of the round sets the pace whatever the pivot count; near the collapse,
+where 4-10 % of pivots are accepted, an uncapped count would also make those points the slowest of a study)."""
 
 OVERLAP_GRID = 4096
 """Distances in (0, cutoff] at which the pair potentials are evaluated to find the overlap radius (our choice:
@@ -341,8 +343,7 @@ class HybridSampler:
             self.moves["pivot"] = FEW_PIVOTS
         else:
             wanted = math.ceil(self.accepted_pivots * tried / took)
-            most = math.ceil(MAX_TUNED_PIVOTS_PER_BEAD * self.sim.system.n_beads)
-            self.moves["pivot"] = int(min(most, max(MIN_TUNED_PIVOTS, wanted)))
+            self.moves["pivot"] = int(min(MAX_TUNED_PIVOTS, max(MIN_TUNED_PIVOTS, wanted)))
         self.tuning[2] = 1
         log.info("hybrid sampling: pivot acceptance %.3g over the tuning window; %d pivot moves per round from "
                  "step %d", took / tried if tried else float("nan"), self.moves["pivot"], step)

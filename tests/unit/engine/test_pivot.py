@@ -221,10 +221,10 @@ def test_hybrid_run_resumes_bit_for_bit():
 def test_tuned_pivot_count_follows_the_acceptance_of_the_second_half_of_equilibration():
     """With 1/16 accepted pivots per bead (3 for 48 beads) and tune_until = 1,000 steps (rounds of 20 steps),
     the pivot count from step 1,000 on is ceil(3 / a), a the pivot acceptance of the rounds after step 500,
-    clipped to [MIN_TUNED_PIVOTS, MAX_TUNED_PIVOTS_PER_BEAD x 48] (a is well above MIN_PIVOT_ACCEPTANCE here). Until the tuning the
+    clipped to [MIN_TUNED_PIVOTS, MAX_TUNED_PIVOTS] (a is well above MIN_PIVOT_ACCEPTANCE here). Until the tuning the
     tuned sampler draws the same moves as a fixed-count one, so a is read from the fixed-count sampler's
     own counters at steps 500 and 1,000."""
-    from beadsim.engine.hybrid import MAX_TUNED_PIVOTS_PER_BEAD, MIN_PIVOT_ACCEPTANCE, MIN_TUNED_PIVOTS
+    from beadsim.engine.hybrid import MAX_TUNED_PIVOTS, MIN_PIVOT_ACCEPTANCE, MIN_TUNED_PIVOTS
     system = bs.build_chains(48, seed=6)
     ff = bs.ForceField(bs.LennardJones(cutoff=2.5), bs.FENE())
     sim, fixed = _sampler(system, ff, kT=3.0, segment_steps=20, pivot_moves=10)
@@ -235,7 +235,7 @@ def test_tuned_pivot_count_follows_the_acceptance_of_the_second_half_of_equilibr
     sim.run(500)
     tried, took = fixed.counts["pivot"] - at_half
     assert took > 2 * MIN_PIVOT_ACCEPTANCE * tried
-    expected = min(MAX_TUNED_PIVOTS_PER_BEAD * 48, max(MIN_TUNED_PIVOTS, math.ceil(3 * tried / took)))
+    expected = min(MAX_TUNED_PIVOTS, max(MIN_TUNED_PIVOTS, math.ceil(3 * tried / took)))
     sim2, tuned = _sampler(start, ff, kT=3.0, segment_steps=20, pivot_moves=10, accepted_pivots_per_bead=3 / 48,
                            tune_until=1_000)
     sim2.run(980)
