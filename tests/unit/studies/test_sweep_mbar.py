@@ -30,10 +30,10 @@ import pandas as pd
 import pytest
 
 from beadsim.analysis.reweight import heat_capacity_peak, pool_samples, reweighted_curves
-from beadsim.analysis.stats import summarize
+from beadsim.config import read_settings
 from beadsim.io import ScalarTable
 from beadsim.runner import INPUT_FILE, TABLE_FILE
-from beadsim.studies.sweep import RESULTS_CSV, SUMMARY_FILE, estimate_everything, run_study
+from beadsim.studies.sweep import RESULTS_CSV, SUMMARY_FILE, analyze_point, estimate_everything, run_study
 from beadsim.studies.sweep_mbar import CURVES_CSV, curves_table, sweep_curves
 from test_tempering import HARMONIC_MODEL, N_BEADS, STIFFNESS
 
@@ -57,10 +57,13 @@ def harmonic_chain(rng, temperature, n_samples=SAMPLES, rho=CORRELATION):
             "re2": np.sum((positions[:, -1] - positions[:, 0]) ** 2, axis=1)}
 
 
-def write_point(folder, samples, columns=("potential_energy", "radius_of_gyration", "end_to_end_distance")):
-    """A point folder as a sweep leaves it: input (no equilibration) and scalar table, no trajectory."""
+def write_point(folder, samples, temperature, columns=("potential_energy", "radius_of_gyration",
+                                                       "end_to_end_distance")):
+    """A point folder as a sweep leaves it: input (at ``temperature``, no equilibration) and scalar table, no
+    trajectory."""
     folder.mkdir(parents=True)
-    (folder / INPUT_FILE).write_text(HARMONIC_MODEL + "equilibration_steps = 0\n")  # it ends inside [run]
+    model = HARMONIC_MODEL.replace("[dynamics]\n", f"[dynamics]\ntemperature = {temperature}\n")
+    (folder / INPUT_FILE).write_text(model + "equilibration_steps = 0\n")  # it ends inside [run]
     table = ScalarTable(folder / TABLE_FILE, columns)
     values = {"potential_energy": samples["potential_energy"], "radius_of_gyration": np.sqrt(samples["rg2"]),
               "end_to_end_distance": np.sqrt(samples["re2"])}
@@ -71,7 +74,8 @@ def write_point(folder, samples, columns=("potential_energy", "radius_of_gyratio
 
 @pytest.fixture(scope="module")
 def harmonic_sweep(tmp_path_factory):
-    """Five temperatures, two replicas each (seed 21, 3000 correlated samples per point)."""
+    """Five temperatures, two replicas each (seed 21, 3000 correlated samples per point), each row from the
+    sweep's own per-point analysis (beadsim.studies.sweep.analyze_point) of the point folder."""
     root = tmp_path_factory.mktemp("sweep")
     rng = np.random.default_rng(21)
     rows = []
@@ -79,21 +83,10 @@ def harmonic_sweep(tmp_path_factory):
         for r in range(REPLICAS):
             folder = root / f"t{t}_r{r}"
             samples = harmonic_chain(rng, t)
-            write_point(folder, samples)
+            write_point(folder, samples, t)
             rows.append({"n_beads": N_BEADS, "control": t, "replica": r, "folder": str(folder),
-                         **point_averages(samples, t)})
+                         **analyze_point(folder, read_settings(folder / INPUT_FILE))})
     return pd.DataFrame(rows)
-
-
-def point_averages(samples, temperature):
-    """A point's row of the results table as the sweep computes it (beadsim.studies.sweep.analyze_point)."""
-    row = {}
-    u = samples["potential_energy"]
-    for name, x in (("rg2", samples["rg2"]), ("re2", samples["re2"]), ("potential_energy", u / N_BEADS),
-                    ("heat_capacity", (u - u.mean()) ** 2 / (N_BEADS * temperature ** 2))):
-        s = summarize(x, detect=name != "heat_capacity")
-        row[name], row[f"{name}_error"] = s.mean, s.error
-    return row
 
 
 def test_mbar_over_independent_points_gives_the_exact_harmonic_chain(harmonic_sweep):
@@ -146,7 +139,7 @@ def test_points_of_an_older_folder_without_the_energy_column_are_left_out_with_a
         folder = tmp_path / f"p{k}"
         columns = ("radius_of_gyration", "end_to_end_distance") if k == 0 else \
             ("potential_energy", "radius_of_gyration", "end_to_end_distance")
-        write_point(folder, harmonic_chain(rng, t, n_samples=400), columns)
+        write_point(folder, harmonic_chain(rng, t, n_samples=400), t, columns)
         rows.append({"n_beads": N_BEADS, "control": t, "replica": 0, "folder": str(folder)})
     (result,) = sweep_curves(pd.DataFrame(rows), n_bootstrap=10)
     assert any("T = 1 left out" in note and "potential_energy" in note for note in result.peak.notes)
