@@ -203,9 +203,20 @@ def validate(raw, source="input", base=Path(".")):
     return settings
 
 
+#: Keys that were replaced by keys of another meaning: ``(section, key): what to write instead``.
+RETIRED_KEYS = {
+    ("sampling", "accepted_pivots_per_segment"):
+        "it was replaced by accepted_pivots_per_bead, a target per bead and round: X accepted pivots per round "
+        "for N beads is X / N per bead (studies use 0.4)",
+}
+
+
 def check_section(source, section, keys, given):
-    """Validate one section: unknown keys are refused with the closest valid one suggested."""
+    """Validate one section: retired keys are refused with their replacement, unknown keys with the closest
+    valid one suggested."""
     for key in given:
+        if (section, key) in RETIRED_KEYS:
+            raise InputError(f"{source}: [{section}] {key}: {RETIRED_KEYS[(section, key)]}")
         if key not in keys:
             raise InputError(f"{source}: [{section}] unknown key '{key}'{suggest(key, keys)}; "
                              f"allowed keys: {', '.join(keys)}")

@@ -423,6 +423,8 @@ BAD_INPUTS = {
                      ["[dynamics] temperature", "must be a number > 0", "-1"]),
     "unknown_section": (_replace(BASE, "[dynamics]", "[dynamic]"),
                         ["unknown section [dynamic]", "did you mean 'dynamics'", "sections are chains, box"]),
+    "retired_key": (BASE + '\n[sampling]\naccepted_pivots_per_segment = 40\n',
+                    ["[sampling] accepted_pivots_per_segment", "accepted_pivots_per_bead", "X / N per bead"]),
 }
 
 
