@@ -31,10 +31,14 @@ def _kinetic_temperature(masses, v):
 def test_thermostatted_start_has_the_set_temperature_within_its_chi_square_spread():
     """BAOAB, kT = 1.7, 300,000 beads of masses 0.5-4 m, seed 12: T_kin within 4 sigma of kT, sigma =
     kT sqrt(2 / (3 n)) = 0.0025 (chi-square with 3 n degrees of freedom: every component drawn). The light
-    and the heavy half of the beads are checked alike (per-bead masses)."""
+    and the heavy half of the beads are checked alike (per-bead masses). The centre-of-mass velocity is
+    drawn too, not removed: each component of the total momentum is Gaussian with standard deviation
+    sqrt(kT sum m), so it lies below 1e-6 of that with probability about 1e-6 (a removed drift gives 0)."""
     masses = _masses()
     v = bs.BAOABLangevin(0.005, KT, 1.0).start_velocities(masses, seed=12)
     assert v.shape == (N_BEADS, 3)
+    momentum = np.sum(masses[:, None] * v, axis=0)
+    assert np.all(np.abs(momentum) > 1e-6 * np.sqrt(KT * masses.sum()))
     light = masses < np.median(masses)
     for part in (slice(None), light, ~light):
         dof = 3 * masses[part].size
@@ -55,8 +59,9 @@ def test_start_without_thermostat_has_no_drift_and_3n_minus_3_degrees_of_freedom
 
 
 def test_brownian_dynamics_starts_at_rest():
-    """Overdamped dynamics has no velocities: they start (and stay) zero."""
-    assert not np.any(bs.Brownian(0.005, KT, 1.0).start_velocities(np.ones(10), seed=1))
+    """Overdamped dynamics has no velocities: they start (and stay) zero, one row of three per bead."""
+    v = bs.Brownian(0.005, KT, 1.0).start_velocities(np.ones(10), seed=1)
+    assert v.shape == (10, 3) and not np.any(v)
 
 
 @pytest.mark.parametrize("integrator", [bs.BAOABLangevin(0.005, KT, 1.0), bs.VelocityVerlet(0.005, KT)])
