@@ -245,3 +245,24 @@ def test_run_split_in_chunks_equals_one_run():
     two.advance(1000)
     two.advance(2000)
     assert np.array_equal(one.system.positions, two.system.positions)
+
+
+def test_baoab_gives_light_and_heavy_free_beads_the_set_temperature():
+    """4,000 free beads of masses 0.5 and 4 m (alternating), no forces, BAOAB at kT = 1.3, friction 10 / tau,
+    400 steps of 0.005 tau (20 relaxation times 1 / gamma). The O step is the exact
+    Ornstein-Uhlenbeck update, so each velocity component ends Gaussian with variance kT / m (Leimkuhler and
+    Matthews, Appl. Math. Res. Express 2013, 34; Maxwell-Boltzmann), up to the e^-40 left of the start. The
+    kinetic temperature of each mass class, sum m v^2 / (3 n), is then kT times a chi-square variable with
+    6,000 degrees of freedom over 6,000: standard deviation kT sqrt(2 / 6000), tolerance 4 of them. Seed 9.
+    Unit masses could not tell kT / m from kT m in the noise amplitude; these masses can (16 times apart)."""
+    system = _free_beads(4000)
+    system.masses[:] = np.tile([0.5, 4.0], 2000)
+    sim = bs.Simulation(system, bs.ForceField(bs.NoPair(), bs.HarmonicBond(1.0, 0.0)),
+                        bs.BAOABLangevin(0.005, temperature=1.3, friction=10.0), seed=9)
+    sim.run(400)
+    v, m = sim.system.velocities, sim.system.masses
+    sigma = 1.3 * np.sqrt(2 / 6000)
+    for mass in (0.5, 4.0):
+        heavy = m == mass
+        t_kin = float(np.sum(m[heavy, None] * v[heavy] ** 2) / (3 * heavy.sum()))
+        assert abs(t_kin - 1.3) < 4 * sigma, (mass, t_kin)
