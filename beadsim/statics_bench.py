@@ -25,7 +25,7 @@ import math
 import time
 
 import numpy as np
-from scipy.stats import linregress
+from scipy.stats import linregress, sem
 
 from ._validate import positive_int
 from .analysis.stats import inefficiency_estimate, summarize
@@ -227,7 +227,7 @@ def _mean_rate(runs):
     values = np.array([r["per_cpu_second"] for r in runs])
     return {"n_beads": runs[0]["n_beads"], "sampler": runs[0]["sampler"], "replicas": len(runs),
             "per_cpu_second": float(values.mean()),
-            "error": float(values.std(ddof=1) / math.sqrt(values.size)) if values.size >= 2 else None,
+            "error": float(sem(values)) if values.size >= 2 else None,
             "upper_bound": any(r["upper_bound"] for r in runs)}
 
 

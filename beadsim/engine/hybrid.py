@@ -15,8 +15,9 @@ Tuned pivot count: with ``accepted_pivots_per_bead`` set, the pivot moves per
 round are chosen once, at the first round at or after step ``tune_until`` (the
 end of equilibration), from the pivot acceptance ``a`` measured over the rounds
 after ``tune_until / 2``: ``ceil(accepted_pivots_per_bead * n / a)`` for ``n``
-beads, clipped to [:data:`MIN_TUNED_PIVOTS`, :data:`MAX_TUNED_PIVOTS`] when ``a`` is at least :data:`MIN_PIVOT_ACCEPTANCE`, and :data:`FEW_PIVOTS` below
-it. Rounds after that use the fixed count, so production is an ordinary Markov
+beads, clipped to [:data:`MIN_TUNED_PIVOTS`, :data:`MAX_TUNED_PIVOTS`] when
+``a`` is at least :data:`MIN_PIVOT_ACCEPTANCE`, and :data:`FEW_PIVOTS` below it.
+Rounds after that use the fixed count, so production is an ordinary Markov
 chain with a Boltzmann-invariant kernel; the adaptation touches equilibration
 only.
 
@@ -30,9 +31,9 @@ CPU-second; at N = 512, 500 / 1,000 / 2,000 gave 24 / 27 / 39; at N = 1,024,
 500 / 1,000 / 2,000 / 4,000 gave 7.6 / 10.5 / 17 / 10. A fixed count per round is
 too many for short chains and too few for long ones. Past about 2,000 pivots per
 round more only cost: at N = 2,048 the Rg^2 inefficiency stayed at 13-19 rounds
-from 400 to 8,192 pivots per round (:data:`MAX_TUNED_PIVOTS`). In the globule (1.4 %
-accepted) 20 to 1,000 pivots per round gave the same rate within errors, so the
-cheapest round, with few pivots, is kept there.
+from 400 to 8,192 pivots per round (:data:`MAX_TUNED_PIVOTS`). In the globule
+(1.4 % accepted) 20 to 1,000 pivots per round gave the same rate within errors,
+so the cheapest round, with few pivots, is kept there.
 """
 
 import logging
@@ -220,8 +221,7 @@ class HybridSampler:
 
     def __init__(self, sim, segment_steps=1000, pivot_moves=100, crankshaft_moves=0, crankshaft_max_angle=180.0,
                  accepted_pivots_per_bead=None, tune_until=0, overlap_energy=OVERLAP_ENERGY,
-                 tree_min_beads=TREE_MIN_BEADS,
-                 attach=True):
+                 tree_min_beads=TREE_MIN_BEADS, attach=True):
         system = sim.system
         if system.box.periodic:
             raise InputError("hybrid sampling: pivot and crankshaft moves are implemented for open boxes only "
