@@ -4,9 +4,10 @@ The model is the bundled study's (``inputs/lj_chain_model.toml``): one FENE chai
 whose beads attract through Lennard-Jones cut and shifted at 2.5 sigma, BAOAB at dt = 0.005 tau and
 friction 0.5 / tau, one thread. For each chain length the chain is built, minimised and equilibrated
 once with hybrid sampling; every sampler then starts from that state, warms up (the tuned sampler fixes
-its pivot count there) and runs for a fixed CPU budget, recording Rg^2 every round of
-:data:`SEGMENT_STEPS` steps; rounds before the equilibration detected in that series
-(:func:`~beadsim.analysis.stats.summarize`) are dropped but their CPU time is counted. Samplers:
+its pivot count there) and runs for a fixed CPU budget, recording Rg^2 every round (the study's
+``segment_steps`` for ``hybrid``, :data:`SEGMENT_STEPS` for the others); rounds before the equilibration
+detected in that series (:func:`~beadsim.analysis.stats.summarize`) are dropped but their CPU time is
+counted. Samplers:
 
 * ``hybrid``: what a study uses (:data:`beadsim.studies.sweep.STUDY_HYBRID`): pivot count tuned to the
   acceptance, factorized Metropolis rule, tree pair sums;
@@ -38,7 +39,7 @@ from .model.potentials import FENE, ForceField, LennardJones
 from .studies.sweep import STUDY_HYBRID
 
 SEGMENT_STEPS = 20
-"""Integrator steps per round (and between two Rg^2 samples) for every sampler."""
+"""Integrator steps per round (and between two Rg^2 samples) of ``previous-moves`` and ``dynamics``."""
 
 RESOLVED_RUNS = 50
 """A run of at least this many times g resolves g (common practice); shorter ones give upper bounds."""
@@ -53,11 +54,15 @@ def _simulation(system, temperature, seed):
     return Simulation(system, ff, BAOABLangevin(0.005, temperature=temperature, friction=0.5), seed=seed)
 
 
+def _round_steps(name):
+    return STUDY_HYBRID["segment_steps"] if name == "hybrid" else SEGMENT_STEPS
+
+
 def _sampler(sim, name, warmup_steps):
     if name == "dynamics":
         return None
     if name == "hybrid":
-        return HybridSampler(sim, segment_steps=SEGMENT_STEPS, pivot_moves=STUDY_HYBRID["pivot_moves_per_segment"],
+        return HybridSampler(sim, segment_steps=_round_steps(name), pivot_moves=STUDY_HYBRID["pivot_moves_per_segment"],
                              accepted_pivots_per_bead=STUDY_HYBRID["accepted_pivots_per_bead"], tune_until=warmup_steps)
     return HybridSampler(sim, segment_steps=SEGMENT_STEPS, **PREVIOUS_MOVES)
 
@@ -75,8 +80,9 @@ def equilibrated_chain(n_beads, temperature, rounds, seed=1):
     """
     sim = _simulation(build_chains(n_beads, seed=seed), temperature, seed)
     sim.minimize()
-    _sampler(sim, "hybrid", rounds * SEGMENT_STEPS // 2)
-    sim.run(rounds * SEGMENT_STEPS)
+    steps = rounds * _round_steps("hybrid")
+    _sampler(sim, "hybrid", steps // 2)
+    sim.run(steps)
     return sim.system.copy()
 
 
@@ -99,13 +105,14 @@ def measure_sampler(system, temperature, name, cpu_seconds, warmup_rounds, seed=
     Returns
     -------
     dict
-        rounds (kept) and rounds_discarded, cpu_seconds (all of production), pivot acceptance and pivots per round,
+        steps_per_round, rounds (kept) and rounds_discarded, cpu_seconds (all of production), pivot acceptance and pivots per round,
         g (both estimates, rounds, and the standard error of the larger), independent samples, samples per
         CPU-second with its standard error, ``upper_bound`` and mean Rg^2 with its error.
     """
     sim = _simulation(system.copy(), temperature, seed)
-    sampler = _sampler(sim, name, warmup_rounds * SEGMENT_STEPS)
-    sim.run(warmup_rounds * SEGMENT_STEPS)
+    steps = _round_steps(name)
+    sampler = _sampler(sim, name, warmup_rounds * steps)
+    sim.run(warmup_rounds * steps)
     if sampler is not None:
         for counts in sampler.counts.values():
             counts[:] = 0
@@ -114,14 +121,14 @@ def measure_sampler(system, temperature, name, cpu_seconds, warmup_rounds, seed=
     started = time.process_time()
     while time.process_time() - started < cpu_seconds:
         for _ in range(20):
-            sim.run(SEGMENT_STEPS)
+            sim.run(steps)
             series.append(_rg2(x))
     cpu = time.process_time() - started
     start = summarize(np.array(series)).equilibration_index  # rounds still relaxing are not counted
     series = np.array(series[start:])
     ineff = inefficiency_estimate(series)
     g = ineff.value
-    out = {"sampler": name, "rounds": int(series.size), "rounds_discarded": int(start), "cpu_seconds": round(cpu, 2),
+    out = {"sampler": name, "steps_per_round": steps, "rounds": int(series.size), "rounds_discarded": int(start), "cpu_seconds": round(cpu, 2),
            "ms_per_round": round(1e3 * cpu / (series.size + start), 3),
            "g_autocorrelation": round(ineff.autocorrelation, 2),
            "g_blocking": None if ineff.blocking is None else round(ineff.blocking, 2),

@@ -35,8 +35,18 @@ def test_isolated_chain_without_a_sampling_method_gets_tuned_hybrid_sampling(tmp
     settings = point_settings(base, study, _point(study, 16))
     assert {k: settings["sampling"][k] for k in STUDY_HYBRID} == STUDY_HYBRID
     assert settings["sampling"]["accepted_pivots_per_bead"] == 0.4
-    # a dimer has no interior bead for pivot moves: it keeps the base input's (default) dynamics
-    assert point_settings(base, study, _point(study, 2))["sampling"]["method"] == "dynamics"
+    # one table row per segment: the rows are the Rg^2 samples, and a segment's pivots decorrelate them
+    assert settings["output"]["table_interval"] == STUDY_HYBRID["segment_steps"] < base["output"]["table_interval"]
+    # a dimer has no interior bead for pivot moves: it keeps the base input's (default) dynamics and table
+    dimer = point_settings(base, study, _point(study, 2))
+    assert dimer["sampling"]["method"] == "dynamics"
+    assert dimer["output"]["table_interval"] == base["output"]["table_interval"]
+
+
+def test_a_base_input_that_names_hybrid_keeps_its_own_segments_and_table(tmp_path):
+    study, base = _read(tmp_path, '[sampling]\nmethod = "hybrid"\nsegment_steps = 40\n[output]\ntable_interval = 200\n')
+    settings = point_settings(base, study, _point(study, 16))
+    assert settings["sampling"]["segment_steps"] == 40 and settings["output"]["table_interval"] == 200
 
 
 def test_a_base_input_that_names_dynamics_keeps_it(tmp_path):
