@@ -105,9 +105,9 @@ def measure_sampler(system, temperature, name, cpu_seconds, warmup_rounds, seed=
     Returns
     -------
     dict
-        steps_per_round, rounds (kept) and rounds_discarded, cpu_seconds (all of production), pivot acceptance and pivots per round,
-        g (both estimates, rounds, and the standard error of the larger), independent samples, samples per
-        CPU-second with its standard error, ``upper_bound`` and mean Rg^2 with its error.
+        steps_per_round, rounds (kept) and rounds_discarded, cpu_seconds (all of production), pivot acceptance
+        and pivots per round, g (both estimates, rounds, and the standard error of the larger), independent
+        samples, samples per CPU-second with its standard error, ``upper_bound`` and mean Rg^2 with its error.
     """
     sim = _simulation(system.copy(), temperature, seed)
     steps = _round_steps(name)
@@ -128,7 +128,8 @@ def measure_sampler(system, temperature, name, cpu_seconds, warmup_rounds, seed=
     series = np.array(series[start:])
     ineff = inefficiency_estimate(series)
     g = ineff.value
-    out = {"sampler": name, "steps_per_round": steps, "rounds": int(series.size), "rounds_discarded": int(start), "cpu_seconds": round(cpu, 2),
+    out = {"sampler": name, "steps_per_round": steps, "rounds": int(series.size), "rounds_discarded": int(start),
+           "cpu_seconds": round(cpu, 2),
            "ms_per_round": round(1e3 * cpu / (series.size + start), 3),
            "g_autocorrelation": round(ineff.autocorrelation, 2),
            "g_blocking": None if ineff.blocking is None else round(ineff.blocking, 2),
