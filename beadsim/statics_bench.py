@@ -4,10 +4,10 @@ The model is the bundled study's (``inputs/lj_chain_model.toml``): one FENE chai
 whose beads attract through Lennard-Jones cut and shifted at 2.5 sigma, BAOAB at dt = 0.005 tau and
 friction 0.5 / tau, one thread. For each chain length the chain is built, minimised and equilibrated
 once with hybrid sampling; every sampler then starts from that state, warms up (the tuned sampler fixes
-its pivot count there) and runs for a fixed CPU budget, recording Rg^2 every round (the study's
-``segment_steps`` for ``hybrid``, :data:`SEGMENT_STEPS` for the others); rounds before the equilibration
-detected in that series (:func:`~beadsim.analysis.stats.summarize`) are dropped but their CPU time is
-counted. Samplers:
+its pivot count there) and runs for a fixed CPU budget, recording Rg^2 every round (the study's round
+for ``hybrid``, :func:`~beadsim.studies.sweep.study_segment_steps`; :data:`SEGMENT_STEPS` for the others);
+rounds before the equilibration detected in that series (:func:`~beadsim.analysis.stats.summarize`) are
+dropped but their CPU time is counted. Samplers:
 
 * ``hybrid``: what a study uses (:data:`beadsim.studies.sweep.STUDY_HYBRID`): pivot count tuned to the
   acceptance, factorized Metropolis rule, tree pair sums;
@@ -36,7 +36,7 @@ from .engine.simulation import Simulation
 from .engine.threads import set_threads
 from .model.build import build_chains
 from .model.potentials import FENE, ForceField, LennardJones
-from .studies.sweep import STUDY_HYBRID
+from .studies.sweep import STUDY_HYBRID, study_segment_steps
 
 SEGMENT_STEPS = 20
 """Integrator steps per round (and between two Rg^2 samples) of ``previous-moves`` and ``dynamics``."""
@@ -54,15 +54,16 @@ def _simulation(system, temperature, seed):
     return Simulation(system, ff, BAOABLangevin(0.005, temperature=temperature, friction=0.5), seed=seed)
 
 
-def _round_steps(name):
-    return STUDY_HYBRID["segment_steps"] if name == "hybrid" else SEGMENT_STEPS
+def _round_steps(name, n_beads):
+    return study_segment_steps(n_beads) if name == "hybrid" else SEGMENT_STEPS
 
 
 def _sampler(sim, name, warmup_steps):
     if name == "dynamics":
         return None
     if name == "hybrid":
-        return HybridSampler(sim, segment_steps=_round_steps(name), pivot_moves=STUDY_HYBRID["pivot_moves_per_segment"],
+        return HybridSampler(sim, segment_steps=_round_steps(name, sim.system.n_beads),
+                             pivot_moves=STUDY_HYBRID["pivot_moves_per_segment"],
                              accepted_pivots_per_bead=STUDY_HYBRID["accepted_pivots_per_bead"], tune_until=warmup_steps)
     return HybridSampler(sim, segment_steps=SEGMENT_STEPS, **PREVIOUS_MOVES)
 
@@ -80,7 +81,7 @@ def equilibrated_chain(n_beads, temperature, rounds, seed=1):
     """
     sim = _simulation(build_chains(n_beads, seed=seed), temperature, seed)
     sim.minimize()
-    steps = rounds * _round_steps("hybrid")
+    steps = rounds * _round_steps("hybrid", n_beads)
     _sampler(sim, "hybrid", steps // 2)
     sim.run(steps)
     return sim.system.copy()
@@ -110,7 +111,7 @@ def measure_sampler(system, temperature, name, cpu_seconds, warmup_rounds, seed=
         samples, samples per CPU-second with its standard error, ``upper_bound`` and mean Rg^2 with its error.
     """
     sim = _simulation(system.copy(), temperature, seed)
-    steps = _round_steps(name)
+    steps = _round_steps(name, system.n_beads)
     sampler = _sampler(sim, name, warmup_rounds * steps)
     sim.run(warmup_rounds * steps)
     if sampler is not None:

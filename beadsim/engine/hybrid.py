@@ -36,7 +36,8 @@ from 400 to 8,192 pivots per round (:data:`MAX_TUNED_PIVOTS`). In the globule
 so the cheapest round, with few pivots, is kept there. The Langevin part of the
 round may be shorter: at N = 512 with about 1,200 pivots per round, rounds of
 20 / 10 / 5 steps cost 14.4 / 12.6 / 11.6 ms and gave 28 +- 3 / 32 +- 2 /
-31 +- 3 independent samples per CPU-second (three runs each), so studies use 10.
+31 +- 3 independent samples per CPU-second (three runs each), so studies use 10
+for long chains (:data:`beadsim.studies.sweep.LONG_CHAIN_BEADS`).
 """
 
 import logging

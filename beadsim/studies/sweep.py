@@ -106,13 +106,29 @@ def _control_values(study, src):
 
 
 #: Hybrid settings a study gives an isolated-chain model whose base input names no sampling method:
-#: rounds of 10 Langevin steps, each followed by pivots whose count is tuned at the end of equilibration
+#: rounds of 20 Langevin steps, each followed by pivots whose count is tuned at the end of equilibration
 #: (100 until then): about 0.4 accepted per bead per round where pivots are accepted often (coils), 2 pivots
 #: per round where they are not (globules). Measured in analysis/statics_speed.md (engine.hybrid module
-#: notes): with about 1,200 pivots per round at N = 512, rounds of 10 steps cost 13 % less than rounds of
-#: 20 and decorrelate Rg^2 as fast; rounds of 5 were no faster.
-STUDY_HYBRID = {"method": "hybrid", "segment_steps": 10, "pivot_moves_per_segment": 100,
+#: notes). Long chains get shorter rounds (:func:`study_segment_steps`).
+STUDY_HYBRID = {"method": "hybrid", "segment_steps": 20, "pivot_moves_per_segment": 100,
                 "accepted_pivots_per_bead": 0.4, "crankshaft_moves_per_segment": 0}
+
+LONG_CHAIN_BEADS = 256
+"""Chains of at least this many beads get rounds of :data:`LONG_CHAIN_SEGMENT_STEPS` and one table row per round.
+
+There a round costs milliseconds, mostly pivots, and decorrelates Rg^2 within 2-5 rounds, so rows every
+round are independent samples at little cost. Shorter chains keep 20-step rounds and the base input's
+table: their rounds cost a few tenths of a millisecond, as much as the fixed cost of a round or a row
+(about 0.3 ms each, measured on 14-bead chains), and rows 100 steps apart are already independent."""
+
+LONG_CHAIN_SEGMENT_STEPS = 10
+"""Langevin steps per hybrid round for long chains: at N = 512 with about 1,200 pivots per round, rounds of
+10 steps cost 13 % less than rounds of 20 and decorrelate Rg^2 as fast (rounds of 5 were no faster)."""
+
+
+def study_segment_steps(n_beads):
+    """Langevin steps per hybrid round that a study gives a chain of ``n_beads`` beads."""
+    return LONG_CHAIN_SEGMENT_STEPS if n_beads >= LONG_CHAIN_BEADS else STUDY_HYBRID["segment_steps"]
 
 
 def choose_sampler(base, explicit):
@@ -128,31 +144,28 @@ def choose_sampler(base, explicit):
     Returns
     -------
     dict
-        ``settings``: the ``[sampling]`` section every point uses; ``table_interval``: the steps between
-        two rows of each point's scalar table (the base input's, or one segment when the study chooses
-        hybrid moves, whose rounds decorrelate Rg^2 within a few segments); ``note``: one line for the
-        console and the summary saying which sampler and why.
+        ``settings``: the ``[sampling]`` section every point uses; ``by_length``: True when the study
+        chose hybrid moves itself, whose rounds then follow :func:`study_segment_steps`; ``note``: one
+        line for the console and the summary saying which sampler and why.
     """
     sampling = dict(base["sampling"])
-    table_interval = base["output"]["table_interval"]
     if explicit:
-        return {"settings": sampling, "table_interval": table_interval,
-                "note": f"{sampling['method']} (set in the base input)"}
+        return {"settings": sampling, "by_length": False, "note": f"{sampling['method']} (set in the base input)"}
     if base["box"]["kind"] != "open":
-        return {"settings": sampling, "table_interval": table_interval,
+        return {"settings": sampling, "by_length": False,
                 "note": "dynamics: the base model is a periodic box, where pivot moves do not apply; plain "
                         "Langevin dynamics samples every point"}
     if not INTEGRATORS[base["dynamics"]["integrator"]].thermostatted:
-        return {"settings": sampling, "table_interval": table_interval,
+        return {"settings": sampling, "by_length": False,
                 "note": f"dynamics: the base integrator '{base['dynamics']['integrator']}' has no temperature "
                         "for the Metropolis rule of pivot moves"}
     sampling.update(STUDY_HYBRID)
-    segment = STUDY_HYBRID["segment_steps"]
-    return {"settings": sampling, "table_interval": min(table_interval, segment),
+    return {"settings": sampling, "by_length": True,
             "note": f"hybrid (the base input names no [sampling] method, so each isolated chain is sampled by "
-                    f"Langevin segments of {segment} steps and pivot moves tuned per point: about 0.4 accepted "
-                    "per bead per segment in coils, 2 per segment where pivots are rarely accepted; factorized "
-                    "Metropolis rule, tree pair sums; one table row per segment; the pivot count of each point "
+                    f"Langevin segments of {STUDY_HYBRID['segment_steps']} steps ({LONG_CHAIN_SEGMENT_STEPS} "
+                    f"from {LONG_CHAIN_BEADS} beads on, with one table row per segment) and pivot moves tuned per "
+                    "point: about 0.4 accepted per bead per segment in coils, 2 per segment where pivots are "
+                    "rarely accepted; factorized Metropolis rule, tree pair sums; the pivot count of each point "
                     "is in results.csv; statics only)"}
 
 
@@ -198,7 +211,9 @@ def point_settings(base, study, point):
     s["solvent"] = {key: None for key in s["solvent"]}  # the control value replaces any preset
     if point["n_beads"] >= 3:  # pivot moves need an interior bead; dimers keep the base input's sampling
         s["sampling"] = dict(study["sampling"]["settings"])
-        s["output"]["table_interval"] = study["sampling"]["table_interval"]
+        if study["sampling"]["by_length"] and point["n_beads"] >= LONG_CHAIN_BEADS:
+            s["sampling"]["segment_steps"] = LONG_CHAIN_SEGMENT_STEPS
+            s["output"]["table_interval"] = min(s["output"]["table_interval"], LONG_CHAIN_SEGMENT_STEPS)
     if study["control"] == "temperature":
         s["dynamics"]["temperature"] = point["control"]
     else:

@@ -12,7 +12,8 @@ holds exactly at theta.
 import numpy as np
 import pytest
 
-from beadsim.studies.sweep import STUDY_HYBRID, estimate_everything, point_settings, read_study
+from beadsim.studies.sweep import (LONG_CHAIN_BEADS, LONG_CHAIN_SEGMENT_STEPS, STUDY_HYBRID, estimate_everything,
+                                   point_settings, read_study)
 from beadsim.studies.theta import flory_model_table
 
 STUDY = '[study]\nbase = "model.toml"\ncontrol = "temperature"\nvalues = [1.0, 2.0]\nchain_lengths = [2, 16]\nseed = 4\n'
@@ -35,17 +36,19 @@ def test_isolated_chain_without_a_sampling_method_gets_tuned_hybrid_sampling(tmp
     settings = point_settings(base, study, _point(study, 16))
     assert {k: settings["sampling"][k] for k in STUDY_HYBRID} == STUDY_HYBRID
     assert settings["sampling"]["accepted_pivots_per_bead"] == 0.4
-    # one table row per segment: the rows are the Rg^2 samples, and a segment's pivots decorrelate them
-    assert settings["output"]["table_interval"] == STUDY_HYBRID["segment_steps"] < base["output"]["table_interval"]
-    # a dimer has no interior bead for pivot moves: it keeps the base input's (default) dynamics and table
-    dimer = point_settings(base, study, _point(study, 2))
-    assert dimer["sampling"]["method"] == "dynamics"
-    assert dimer["output"]["table_interval"] == base["output"]["table_interval"]
+    assert settings["output"]["table_interval"] == base["output"]["table_interval"]
+    # long chains: shorter rounds and one table row per round (the rows are the Rg^2 samples)
+    long = point_settings(base, study, _point(study, LONG_CHAIN_BEADS))
+    assert long["sampling"]["segment_steps"] == LONG_CHAIN_SEGMENT_STEPS == long["output"]["table_interval"]
+    assert LONG_CHAIN_SEGMENT_STEPS < STUDY_HYBRID["segment_steps"] < base["output"]["table_interval"]
+    assert point_settings(base, study, _point(study, LONG_CHAIN_BEADS - 1))["sampling"]["segment_steps"] == 20
+    # a dimer has no interior bead for pivot moves: it keeps the base input's (default) dynamics
+    assert point_settings(base, study, _point(study, 2))["sampling"]["method"] == "dynamics"
 
 
 def test_a_base_input_that_names_hybrid_keeps_its_own_segments_and_table(tmp_path):
     study, base = _read(tmp_path, '[sampling]\nmethod = "hybrid"\nsegment_steps = 40\n[output]\ntable_interval = 200\n')
-    settings = point_settings(base, study, _point(study, 16))
+    settings = point_settings(base, study, _point(study, 2 * LONG_CHAIN_BEADS))
     assert settings["sampling"]["segment_steps"] == 40 and settings["output"]["table_interval"] == 200
 
 
