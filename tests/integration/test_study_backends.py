@@ -115,9 +115,9 @@ def test_killed_dask_worker_costs_no_point_and_records_none_twice(tmp_path):
 
 
 def test_ctrl_c_leaves_store_consistent_and_rerun_completes(tmp_path, beadsim_command, subprocess_env):
-    # points long enough (about 7 s each, 4 rounds on 2 workers) that Ctrl-C lands while some are still to run, also on a
-    # loaded machine where the store is polled late
-    path = _study(tmp_path, values="[1.5, 2.0, 2.5, 3.0]", steps=300000)
+    # points long enough (about 7 s each, 2 rounds on 2 workers) that Ctrl-C lands while some are still to run, also on a
+    # loaded machine where the store is polled late: after the first point, the other three are running or pending
+    path = _study(tmp_path, values="[1.5, 2.0, 2.5, 3.0]", lengths="[12]", steps=300000)
     out = tmp_path / "out"
     cmd = [*beadsim_command, "sweep", str(path), "--out", str(out), "--cluster", "local:2", "--quiet"]
     # a terminal starts the command with Ctrl-C at its default action; a test suite started with '&' from a shell
