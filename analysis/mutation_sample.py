@@ -13,8 +13,9 @@ has generated the mutants and collected which tests reach which function::
     python analysis/mutation_sample.py --sample 250 --seed 1 --json analysis/mutation_DATE.json
     python analysis/mutation_sample.py --rerun analysis/mutation_DATE.json --json analysis/mutation_DATE_after.json
 
-The first draws the sample and tests it; ``--rerun`` tests the same mutants again (after new tests; the
-source of the named modules must not have changed, or the mutants' numbering may differ).
+The first draws the sample and tests it; ``--rerun`` tests the previous record's survivors again and
+keeps its other verdicts (for new tests only: a test removed or changed could let a killed mutant live,
+and a change to the named modules' source may renumber their mutants).
 ``mutmut show NAME`` prints the change a mutant makes.
 """
 
@@ -62,12 +63,16 @@ def main():
     if args.rerun:
         previous = json.loads(Path(args.rerun).read_text())
         sample, population, seed = previous["mutants"], previous["population"], previous["seed"]
+        to_test, status = previous["survivors"], dict(previous["status"])
     else:
         names = all_mutants()
         population, seed = len(names), args.seed
         sample = sorted(random.Random(seed).sample(names, min(args.sample, population)))
-    subprocess.run([sys.executable, "-m", "mutmut", "run", "--max-children", str(args.children), *sample], check=False)
-    status = statuses(sample)
+        to_test, status = sample, {}
+    if to_test:
+        subprocess.run([sys.executable, "-m", "mutmut", "run", "--max-children", str(args.children), *to_test],
+                       check=False)
+    status.update(statuses(to_test))
     tested = [n for n in sample if status.get(n) not in (None, "not checked", "skipped")]
     killed = [n for n in tested if status[n] in KILLED]
     score = len(killed) / len(tested) if tested else float("nan")
