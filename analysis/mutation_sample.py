@@ -13,13 +13,17 @@ has generated the mutants and collected which tests reach which function::
     python analysis/mutation_sample.py --sample 250 --seed 1 --json analysis/mutation_DATE.json
     python analysis/mutation_sample.py --rerun analysis/mutation_DATE.json --json analysis/mutation_DATE_after.json
 
-The first draws the sample and tests it; ``--rerun`` tests the previous record's survivors again and
-keeps its other verdicts (for new tests only: a test removed or changed could let a killed mutant live,
-and a change to the named modules' source may renumber their mutants).
+The first draws the sample and tests it; ``--rerun`` tests again the mutants of a previous record whose
+status is one of ``--again`` (default: all but "killed") and keeps the other verdicts (for new tests
+only: a test removed or changed could let a killed mutant live, and a change to the named modules'
+source may renumber their mutants). mutmut ends a mutant's tests after (estimated test time + 1 s) x 30
+CPU-seconds; its estimate can be far too small for tests whose work sits in fixtures, so a "timeout"
+is rerun with a larger ``timeout_constant`` in ``[tool.mutmut]`` before it counts as killed.
 ``mutmut show NAME`` prints the change a mutant makes.
 """
 
 import argparse
+from collections import Counter
 import json
 import math
 import platform
@@ -55,7 +59,9 @@ def main():
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--sample", type=int, default=250, help="mutants to draw")
     p.add_argument("--seed", type=int, default=1, help="seed of the draw")
-    p.add_argument("--rerun", help="a previous record: test its mutants again")
+    p.add_argument("--rerun", help="a previous record: test some of its mutants again")
+    p.add_argument("--again", nargs="+", default=["survived", "no tests", "timeout", "suspicious"],
+                   help="with --rerun: the statuses to test again")
     p.add_argument("--children", type=int, default=2, help="mutants tested at once")
     p.add_argument("--json", required=True, help="record to write")
     args = p.parse_args()
@@ -63,7 +69,8 @@ def main():
     if args.rerun:
         previous = json.loads(Path(args.rerun).read_text())
         sample, population, seed = previous["mutants"], previous["population"], previous["seed"]
-        to_test, status = previous["survivors"], dict(previous["status"])
+        status = dict(previous["status"])
+        to_test = [n for n in sample if status.get(n) in args.again]
     else:
         names = all_mutants()
         population, seed = len(names), args.seed
@@ -85,7 +92,7 @@ def main():
         "commit": subprocess.run(["git", "rev-parse", "--short", "HEAD"], capture_output=True,
                                  text=True).stdout.strip(),
         "seed": seed, "population": population, "mutants": sample, "tested": len(tested),
-        "killed": len(killed), "score": score,
+        "killed": len(killed), "score": score, "counts": dict(Counter(status[n] for n in sample if n in status)),
         "score_error": math.sqrt(score * (1 - score) / len(tested)) if tested else None,
         "status": status, "survivors": sorted(n for n in tested if n not in killed),
         "wall_seconds": round(time.time() - started),
