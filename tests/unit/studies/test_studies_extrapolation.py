@@ -247,6 +247,10 @@ def test_consistent_estimators_have_no_systematic_error_and_all_agree():
     assert result.systematic_error == 0.0 and result.total_error == result.statistical_error
     assert result.consistent and set(result.agreeing) == set(CONSISTENT) and result.disagreeing == ()
     assert result.p_value == pytest.approx(stats.chi2.sf(result.chi2, 2)) and result.notes == ()
+    # the record a study writes: every field under its own name, JSON-ready
+    record = json.loads(json.dumps(result.as_dict()))
+    assert (record["chi2"], record["dof"], record["value"], record["total_error"]) == (
+        result.chi2, result.dof, result.value, result.total_error)
 
 
 def test_outlier_is_flagged_and_increases_the_total_error():
@@ -344,8 +348,8 @@ def test_agreement_rule_has_its_nominal_coverage(combinations, index):
 @pytest.mark.parametrize("kwargs,name", [
     ({"n_values": LENGTHS[:4]}, "n_values"),
     ({"values": [3.0, 2.9]}, "errors"),
-    ({"n_values": [0, 64, 128, 256, 512]}, "n_values"),
-    ({"n_values": [-32, 64, 128, 256, 512]}, "n_values"),
+    ({"n_values": [0, 64, 128, 256, 512]}, "n_values: chain lengths must be > 0"),
+    ({"n_values": [-32, 64, 128, 256, 512]}, "n_values: chain lengths must be > 0"),
     ({"errors": [0.01, -0.01, 0.01, 0.01, 0.01]}, "errors"),
     ({"errors": [0.01, 0.0, 0.01, 0.01, 0.01]}, "errors"),
     ({"exponent": 0.0}, "exponent"),

@@ -26,6 +26,7 @@ from beadsim.model.potentials import (
     ForceField,
     HarmonicBond,
     LennardJones,
+    NoPair,
     TabulatedPair,
 )
 from beadsim.model.tables import Table
@@ -138,10 +139,11 @@ def test_table_report_flags_a_planted_jump_or_wrong_force_column(tmp_path, flaw)
 
 
 @pytest.mark.parametrize("pair, attracts", [(WCA(), False), (LennardJones(cutoff=2.5), True),
-                                             (CosineSquared(depth=0.5), True)])
+                                             (CosineSquared(depth=0.5), True), (NoPair(), False)])
 def test_only_potentials_with_a_negative_part_get_a_theta_sweep(pair, attracts):
     # WCA is the LJ potential cut at its minimum and shifted up by epsilon, so U >= 0 (Weeks, Chandler and
-    # Andersen 1971); LJ cut and shifted at 2.5 sigma and the cosine-squared tail are negative beyond the core.
+    # Andersen 1971); LJ cut and shifted at 2.5 sigma and the cosine-squared tail are negative beyond the core;
+    # no pair potential (an ideal chain) has no attraction.
     assert has_attraction(ForceField(pair, FENE())) is attracts
 
 

@@ -52,6 +52,14 @@ def test_a_base_input_that_names_hybrid_keeps_its_own_segments_and_table(tmp_pat
     assert settings["sampling"]["segment_steps"] == 40 and settings["output"]["table_interval"] == 200
 
 
+def test_every_point_is_one_chain_whatever_the_base_model_holds(tmp_path):
+    study, base = _read(tmp_path, '[sampling]\nmethod = "dynamics"\n')
+    base["chains"]["count"] = 3
+    settings = point_settings(base, study, _point(study, 16))
+    assert settings["chains"]["count"] == 1 and settings["chains"]["length"] == [16]
+    assert base["chains"]["count"] == 3  # the base settings are not changed
+
+
 def test_a_base_input_that_names_dynamics_keeps_it(tmp_path):
     study, base = _read(tmp_path, '[sampling]\nmethod = "dynamics"\n')
     assert study["sampling"]["note"] == "dynamics (set in the base input)"

@@ -89,6 +89,14 @@ def harmonic_sweep(tmp_path_factory):
     return pd.DataFrame(rows)
 
 
+def test_points_without_frames_or_pivot_moves_carry_every_column_as_nan(harmonic_sweep):
+    """results.csv keeps one schema: these points saved no frames and made no pivot moves, and still carry
+    the frame and pivot columns, as NaN (a missing column would make the study's tables disagree)."""
+    for column in ("nu_internal", "nu_internal_error", "b2", "b2_error", "psi_star", "psi_star_error",
+                   "pivot_acceptance", "pivot_moves_per_segment"):
+        assert harmonic_sweep[column].isna().all(), column
+
+
 def test_mbar_over_independent_points_gives_the_exact_harmonic_chain(harmonic_sweep):
     (result,) = sweep_curves(harmonic_sweep, n_grid=51, n_bootstrap=10, seed=1)
     table = curves_table([result])
