@@ -309,6 +309,14 @@ def test_estimators_without_a_value_are_left_out():
     assert result.value == fit.value and result.notes[0] == "left out (no value or no finite error): ratio"
 
 
+def test_no_usable_estimator_gives_no_value_and_a_complete_record():
+    none = extrapolate([128], [2.7], [0.01], method="ratio")
+    record = json.loads(json.dumps(combine([none]).as_dict()))
+    assert record["value"] is None and record["total_error"] is None
+    assert record["agreeing"] == record["disagreeing"] == record["estimators"] == []
+    assert record["note"].endswith("no estimator has a value with a finite error")
+
+
 ERRORS_4 = np.array([0.01, 0.02, 0.015, 0.03])
 
 

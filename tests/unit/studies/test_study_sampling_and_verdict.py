@@ -111,4 +111,5 @@ def test_extrapolated_theta_of_the_model_covers_the_truth(tmp_path, lengths):
     out = estimate_everything(df, "temperature", tmp_path / "figures", seed=1)
     theta = out["verdict"]["theta"]
     assert abs(theta["value"] - 3.0) < 3 * theta["error"]
+    assert (out["theta_combined"]["value"], out["theta_combined"]["error"]) == (theta["value"], theta["error"])
     assert (tmp_path / "figures" / "theta_extrapolation.png").exists()
