@@ -112,4 +112,10 @@ def test_extrapolated_theta_of_the_model_covers_the_truth(tmp_path, lengths):
     theta = out["verdict"]["theta"]
     assert abs(theta["value"] - 3.0) < 3 * theta["error"]
     assert (out["theta_combined"]["value"], out["theta_combined"]["error"]) == (theta["value"], theta["error"])
+    # the verdict says which chain and which control values each of its numbers comes from
+    verdict = out["verdict"]
+    assert verdict["coil_globule_midpoint"]["n_beads"] == 512 and verdict["coil_globule_midpoint"]["value"] is not None
+    for side, control in (("nu_good_side", 3.8), ("nu_poor_side", 2.4)):
+        assert verdict[side]["control"] == pytest.approx(control)
+        assert verdict[side]["where"] == f"N = 32, 64, 128, 256, 512 at control {control:g}"
     assert (tmp_path / "figures" / "theta_extrapolation.png").exists()
