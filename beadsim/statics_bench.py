@@ -62,7 +62,7 @@ def _sampler(sim, name, warmup_steps):
     if name == "dynamics":
         return None
     if name == "hybrid":
-        return HybridSampler(sim, segment_steps=_round_steps(name, sim.system.n_beads),
+        return HybridSampler(sim, segment_steps=study_segment_steps(sim.system.n_beads),
                              pivot_moves=STUDY_HYBRID["pivot_moves_per_segment"],
                              accepted_pivots_per_bead=STUDY_HYBRID["accepted_pivots_per_bead"], tune_until=warmup_steps)
     return HybridSampler(sim, segment_steps=SEGMENT_STEPS, **PREVIOUS_MOVES)

@@ -211,9 +211,10 @@ def point_settings(base, study, point):
     s["solvent"] = {key: None for key in s["solvent"]}  # the control value replaces any preset
     if point["n_beads"] >= 3:  # pivot moves need an interior bead; dimers keep the base input's sampling
         s["sampling"] = dict(study["sampling"]["settings"])
-        if study["sampling"]["by_length"] and point["n_beads"] >= LONG_CHAIN_BEADS:
-            s["sampling"]["segment_steps"] = LONG_CHAIN_SEGMENT_STEPS
-            s["output"]["table_interval"] = min(s["output"]["table_interval"], LONG_CHAIN_SEGMENT_STEPS)
+        if study["sampling"]["by_length"]:
+            s["sampling"]["segment_steps"] = study_segment_steps(point["n_beads"])
+            if point["n_beads"] >= LONG_CHAIN_BEADS:  # one table row per round
+                s["output"]["table_interval"] = min(s["output"]["table_interval"], s["sampling"]["segment_steps"])
     if study["control"] == "temperature":
         s["dynamics"]["temperature"] = point["control"]
     else:
